@@ -1,0 +1,1 @@
+"""gnflow: laminar flows of generalized Newtonian fluids by finite elements."""

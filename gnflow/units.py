@@ -1,0 +1,149 @@
+"""Units: one pint registry, and the conversion of case-file values to SI floats.
+
+A dimensional value in a case file is either a bare number, taken as SI, or a string
+``"<number> <unit expression>"`` such as ``"3 mm"``, ``"12 kPa/m"``, ``"30 rpm"``,
+``"45 cP"``, ``"2.5 Pa*s^0.45"`` or ``"1.2 lbf*s/ft^2"``. The number is read by a plain
+regular expression and only the unit part goes to pint, so a case file can never make
+gnflow evaluate an arithmetic expression.
+
+>>> quantity("3 mm", "length", "geometry.gap")
+0.003
+>>> round(quantity("30 rpm", "angular_speed", "drive.inner_angular_speed"), 6)
+3.141593
+"""
+
+from __future__ import annotations
+
+import math
+import re
+
+import pint
+
+from .errors import CaseError
+
+registry = pint.UnitRegistry()
+
+#: name -> (SI unit used in messages and printed summaries, pint dimensionality)
+DIMENSIONS = {
+    "length": "m",
+    "area": "m^2",
+    "velocity": "m/s",
+    "time": "s",
+    "rate": "1/s",
+    "angular_speed": "rad/s",
+    "stress": "Pa",
+    "pressure_gradient": "Pa/m",
+    "viscosity": "Pa*s",
+    "density": "kg/m^3",
+    "flow_rate": "m^3/s",
+    "flow_rate_per_width": "m^2/s",
+    "torque_per_length": "N*m/m",
+    "power_per_length": "W/m",
+    "molar_energy": "J/mol",
+    "temperature": "K",
+    "dimensionless": "",
+}
+
+_NUMBER = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?|[-+]?(?:nan|inf|infinity))"
+                     r"\s*(.*?)\s*$", re.IGNORECASE)
+_MAX_TEXT = 200
+
+
+def si_unit(dimension: str, flow_index: float | None = None) -> str:
+    """The SI unit string of a named dimension (``consistency`` needs the flow index)."""
+    if dimension == "consistency":
+        return f"Pa*s^{flow_index:g}"
+    return DIMENSIONS[dimension]
+
+
+def _target_units(dimension: str, flow_index: float | None):
+    if dimension == "consistency":
+        return registry.pascal * registry.second ** flow_index
+    return registry.parse_units(DIMENSIONS[dimension] or "dimensionless")
+
+
+def _expected(dimension: str, flow_index: float | None) -> str:
+    unit = si_unit(dimension, flow_index)
+    what = dimension.replace("_", " ")
+    return f"a {what} (a number in {unit}, or a string with units such as \"{_example(dimension)}\")" \
+        if unit else "a plain number"
+
+
+def _example(dimension: str) -> str:
+    return {
+        "length": "25 mm", "area": "3 cm^2", "velocity": "0.5 m/s", "time": "0.2 s",
+        "rate": "100 1/s", "angular_speed": "60 rpm", "stress": "8 Pa",
+        "pressure_gradient": "-3 kPa/m", "viscosity": "45 cP", "density": "1050 kg/m^3",
+        "flow_rate": "2 L/s", "flow_rate_per_width": "0.001 m^2/s",
+        "consistency": "2.5 Pa*s^0.45", "molar_energy": "40 kJ/mol",
+        "temperature": "40 degC", "torque_per_length": "1 N*m/m",
+        "power_per_length": "1 W/m",
+    }.get(dimension, "1")
+
+
+def quantity(value, dimension: str, key: str, flow_index: float | None = None) -> float:
+    """Convert a case-file value to an SI float of the named ``dimension``.
+
+    ``dimension`` is a key of :data:`DIMENSIONS` or ``"consistency"`` (Pa s^n, which
+    needs ``flow_index``). Raises :class:`CaseError` naming ``key`` when the value is not
+    a finite number or a string with units of the right dimension.
+
+    >>> quantity("1 lbf*s/ft^2", "viscosity", "fluid.viscosity")  # NIST SP 811: 47.880 26
+    47.88025898033586
+    >>> quantity(12.0, "stress", "fluid.yield_stress")
+    12.0
+    """
+    expected = _expected(dimension, flow_index)
+    if isinstance(value, bool):
+        raise CaseError(key, value, expected)
+    if isinstance(value, (int, float)):
+        number = float(value)
+        if not math.isfinite(number):
+            raise CaseError(key, value, "a finite number")
+        if dimension == "temperature":
+            return number
+        return number
+    if not isinstance(value, str):
+        raise CaseError(key, value, expected)
+    if len(value) > _MAX_TEXT:
+        raise CaseError(key, value, f"a value of at most {_MAX_TEXT} characters")
+    match = _NUMBER.match(value)
+    if not match:
+        raise CaseError(key, value, expected)
+    number = float(match.group(1))
+    if not math.isfinite(number):
+        raise CaseError(key, value, "a finite number")
+    unit_text = match.group(2)
+    if not unit_text:
+        return number
+    try:
+        units = registry.parse_units(unit_text.replace("^", "**"))
+    except Exception:  # pint raises several types for text it cannot read
+        raise CaseError(key, value, f"a known unit; could not read {unit_text!r}") from None
+    target = _target_units(dimension, flow_index)
+    try:
+        converted = registry.Quantity(number, units).to(target).magnitude
+    except pint.DimensionalityError:
+        got = str(registry.Quantity(1, units).dimensionality)
+        raise CaseError(key, value, f"{expected}; {unit_text!r} has dimension {got}") from None
+    except Exception:
+        raise CaseError(key, value, expected) from None
+    converted = float(converted)
+    if not math.isfinite(converted):
+        raise CaseError(key, value, "a finite value")
+    return converted
+
+
+def dimension_of(value: str) -> str | None:
+    """The name in :data:`DIMENSIONS` whose dimensionality matches a string's units."""
+    match = _NUMBER.match(value) if isinstance(value, str) else None
+    if not match or not match.group(2):
+        return None
+    try:
+        dims = registry.parse_units(match.group(2).replace("^", "**")).dimensionality
+    except Exception:
+        return None
+    for name, unit in DIMENSIONS.items():
+        if unit and registry.parse_units(unit).dimensionality == dims:
+            return name
+    return None
