@@ -311,6 +311,9 @@ class Bingham(HerschelBulkley):
         super().__init__(yield_stress, plastic_viscosity, 1.0, regularisation,
                          regularisation_parameter)
 
+    def with_regularisation(self, parameter: float) -> "Bingham":
+        return Bingham(self.yield_stress, self.consistency, self.regularisation, float(parameter))
+
     @property
     def plastic_viscosity(self) -> float:
         return self.consistency

@@ -1,0 +1,535 @@
+"""Case files: parse and validate a TOML case into frozen dataclasses in SI.
+
+All checks of user input live here, so that the later stages can trust what they get.
+A problem raises :class:`gnflow.errors.CaseError` naming the key, the value and what
+was expected; unknown keys are errors with a "did you mean" hint.
+
+>>> case = Case.from_dict({
+...     "fluid": {"model": "power-law", "consistency": "2.5 Pa*s^0.45", "flow_index": 0.45},
+...     "geometry": {"shape": "pipe", "radius": "25 mm"},
+...     "drive": {"pressure_gradient": "-3 kPa/m"}})
+>>> case.geometry.radius, case.drive.pressure_gradient, case.mesh.cells
+(0.025, -3000.0, 200)
+"""
+
+from __future__ import annotations
+
+import copy
+import difflib
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from . import rheology
+from .errors import CaseError, check_positive
+from .units import quantity, si_unit
+
+SHAPES = ("slit", "pipe", "annulus", "coaxial-cylinders", "rectangle", "mesh")
+AXIAL_SHAPES = ("slit", "pipe", "annulus", "rectangle", "mesh")
+WALLS = {"slit": ("bottom", "top"), "pipe": ("wall",), "annulus": ("inner", "outer"),
+         "rectangle": ("bottom", "top", "left", "right")}
+
+#: model -> {key: (dimension, default)}; a default of ... means required
+MODEL_KEYS: dict[str, dict[str, tuple[str, Any]]] = {
+    "newtonian": {"viscosity": ("viscosity", ...)},
+    "power-law": {"consistency": ("consistency", ...), "flow_index": ("dimensionless", ...)},
+    "carreau": {"zero_shear_viscosity": ("viscosity", ...),
+                "infinite_shear_viscosity": ("viscosity", 0.0),
+                "time_constant": ("time", ...), "flow_index": ("dimensionless", ...)},
+    "carreau-yasuda": {"zero_shear_viscosity": ("viscosity", ...),
+                       "infinite_shear_viscosity": ("viscosity", 0.0),
+                       "time_constant": ("time", ...), "flow_index": ("dimensionless", ...),
+                       "transition_exponent": ("dimensionless", ...)},
+    "cross": {"zero_shear_viscosity": ("viscosity", ...),
+              "infinite_shear_viscosity": ("viscosity", 0.0),
+              "time_constant": ("time", ...), "rate_exponent": ("dimensionless", ...)},
+    "bingham": {"yield_stress": ("stress", ...), "plastic_viscosity": ("viscosity", ...)},
+    "herschel-bulkley": {"yield_stress": ("stress", ...), "consistency": ("consistency", ...),
+                         "flow_index": ("dimensionless", ...)},
+}
+FLUID_COMMON = ("model", "density", "regularisation", "fitted_rate_range")
+GEOMETRY_KEYS = {
+    "slit": {"gap": "length"},
+    "pipe": {"radius": "length"},
+    "annulus": {"inner_radius": "length", "outer_radius": "length", "eccentricity": None},
+    "coaxial-cylinders": {"inner_radius": "length", "outer_radius": "length"},
+    "rectangle": {"width": "length", "height": "length"},
+    "mesh": {"file": None, "length_unit": None},
+}
+MAX_CELLS_1D = 200_000
+MAX_CELLS_2D = 4_000
+
+
+def _suggest(key: str, allowed) -> str:
+    close = difflib.get_close_matches(key, list(allowed), n=1, cutoff=0.6)
+    return f' (did you mean "{close[0]}"?)' if close else ""
+
+
+def _check_keys(table: dict, allowed, where: str) -> None:
+    for key in table:
+        if key not in allowed:
+            choices = ", ".join(sorted(allowed))
+            raise CaseError(f"{where}.{key}" if where else key, message=(
+                f"unknown key {(where + '.') if where else ''}{key}{_suggest(key, allowed)}; "
+                f"{'[' + where + ']' if where else 'the top level'} takes: {choices}"))
+
+
+def _table(doc: dict, name: str, required: bool = True) -> dict:
+    value = doc.get(name)
+    if value is None:
+        if required:
+            raise CaseError(name, message=f"missing section [{name}]")
+        return {}
+    if not isinstance(value, dict):
+        raise CaseError(name, value, f"a table [{name}]")
+    return value
+
+
+def _number(table: dict, key: str, where: str, default=...) -> float:
+    if key not in table:
+        if default is ...:
+            raise CaseError(f"{where}.{key}", message=f"missing key {where}.{key}")
+        return default
+    value = table[key]
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise CaseError(f"{where}.{key}", value, "a plain number")
+    if not math.isfinite(value):
+        raise CaseError(f"{where}.{key}", value, "a finite number")
+    return float(value)
+
+
+def _whole(table: dict, key: str, where: str, default: int, low: int, high: int) -> int:
+    value = table.get(key, default)
+    if isinstance(value, bool) or not isinstance(value, int):
+        raise CaseError(f"{where}.{key}", value, f"a whole number from {low} to {high}")
+    if not low <= value <= high:
+        raise CaseError(f"{where}.{key}", value, f"a whole number from {low} to {high}")
+    return value
+
+
+def _choice(table: dict, key: str, where: str, choices, default=...) -> str:
+    if key not in table:
+        if default is ...:
+            raise CaseError(f"{where}.{key}", message=(
+                f"missing key {where}.{key}; choose one of: {', '.join(choices)}"))
+        return default
+    value = table[key]
+    if not isinstance(value, str) or value not in choices:
+        hint = _suggest(value, choices) if isinstance(value, str) else ""
+        raise CaseError(f"{where}.{key}", value, "one of " + ", ".join(f'"{c}"' for c in choices)
+                        + hint)
+    return value
+
+
+def _flag(table: dict, key: str, where: str, default: bool) -> bool:
+    value = table.get(key, default)
+    if not isinstance(value, bool):
+        raise CaseError(f"{where}.{key}", value, "true or false")
+    return value
+
+
+def _dimensional(table: dict, key: str, where: str, dimension: str, default=...,
+                 flow_index: float | None = None) -> float:
+    if key not in table:
+        if default is ...:
+            raise CaseError(f"{where}.{key}", message=(
+                f"missing key {where}.{key} ({dimension.replace('_', ' ')}, "
+                f"in {si_unit(dimension, flow_index) or 'no unit'})"))
+        return default
+    if dimension == "dimensionless":
+        return _number(table, key, where)
+    return quantity(table[key], dimension, f"{where}.{key}", flow_index)
+
+
+# --------------------------------------------------------------------------- dataclasses
+
+@dataclass(frozen=True)
+class FluidSpec:
+    """The fluid: a rheology model in SI, and what goes with it."""
+
+    model: rheology.Model
+    density: float | None = None
+    regularisation: str | None = None          # yield-stress models only
+    regularisation_parameter: float | None = None  # None: chosen from the case's scales
+    fitted_rate_range: tuple[float, float] | None = None
+
+    @property
+    def name(self) -> str:
+        return self.model.name
+
+
+@dataclass(frozen=True)
+class GeometrySpec:
+    shape: str
+    gap: float | None = None
+    radius: float | None = None
+    inner_radius: float | None = None
+    outer_radius: float | None = None
+    eccentricity: float = 0.0
+    width: float | None = None
+    height: float | None = None
+    file: Path | None = None
+    length_unit: float = 1.0
+
+    @property
+    def is_axial(self) -> bool:
+        return self.shape in AXIAL_SHAPES
+
+    @property
+    def is_one_dimensional(self) -> bool:
+        return self.shape in ("slit", "pipe", "coaxial-cylinders") or (
+            self.shape == "annulus" and self.eccentricity == 0.0)
+
+
+@dataclass(frozen=True)
+class DriveSpec:
+    pressure_gradient: float | None = None
+    flow_rate: float | None = None
+    wall_speed: dict[str, float] = field(default_factory=dict)
+    inner_angular_speed: float = 0.0
+    outer_angular_speed: float = 0.0
+
+
+@dataclass(frozen=True)
+class MeshSpec:
+    cells: int = 200
+    degree: int = 2
+    grading: float = 1.0
+
+
+@dataclass(frozen=True)
+class SolverSpec:
+    method: str = "newton"
+    tolerance: float = 1e-10
+    max_iterations: int = 100
+    linear_solver: str = "auto"
+
+
+@dataclass(frozen=True)
+class OutputSpec:
+    plots: bool = True
+    fields: bool = True
+
+
+@dataclass(frozen=True)
+class Case:
+    """A validated case, every value in SI.
+
+    ``raw`` keeps the mapping the case was built from, so that a study can change one
+    dotted key and build the case again (see :meth:`with_value`).
+    """
+
+    title: str
+    fluid: FluidSpec
+    geometry: GeometrySpec
+    drive: DriveSpec
+    mesh: MeshSpec = MeshSpec()
+    solver: SolverSpec = SolverSpec()
+    output: OutputSpec = OutputSpec()
+    source: Path | None = None
+    raw: dict = field(default_factory=dict, repr=False, compare=False)
+
+    @classmethod
+    def from_dict(cls, mapping: dict, source: str | Path | None = None) -> "Case":
+        """Build a case from the same structure as the TOML file."""
+        if not isinstance(mapping, dict):
+            raise CaseError("case", mapping, "a table of sections")
+        source = Path(source) if source is not None else None
+        _check_keys(mapping, ("title", "fluid", "geometry", "drive", "mesh", "solver",
+                              "output"), "")
+        title = mapping.get("title", source.stem if source else "untitled case")
+        if not isinstance(title, str):
+            raise CaseError("title", title, "a string")
+        geometry = _parse_geometry(_table(mapping, "geometry"), source)
+        fluid = _parse_fluid(_table(mapping, "fluid"))
+        drive = _parse_drive(_table(mapping, "drive"), geometry)
+        mesh = _parse_mesh(_table(mapping, "mesh", required=False), geometry)
+        solver = _parse_solver(_table(mapping, "solver", required=False))
+        output = _parse_output(_table(mapping, "output", required=False))
+        return cls(title, fluid, geometry, drive, mesh, solver, output, source,
+                   copy.deepcopy(mapping))
+
+    def with_value(self, dotted_key: str, value) -> "Case":
+        """A new case with one dotted key (e.g. ``"fluid.flow_index"``) set to ``value``."""
+        mapping = copy.deepcopy(self.raw)
+        parts = dotted_key.split(".")
+        table = mapping
+        for part in parts[:-1]:
+            table = table.setdefault(part, {})
+            if not isinstance(table, dict):
+                raise CaseError(dotted_key, value, "a key inside a table")
+        table[parts[-1]] = value
+        return Case.from_dict(mapping, self.source)
+
+    def to_si(self) -> dict:
+        """The interpreted case in SI, as plain data (for ``gnflow check`` and summaries)."""
+        fluid = {"model": self.fluid.name, **self.fluid.model.parameters()}
+        if self.fluid.density is not None:
+            fluid["density"] = self.fluid.density
+        if self.fluid.regularisation:
+            fluid["regularisation"] = {"method": self.fluid.regularisation,
+                                       "parameter": self.fluid.regularisation_parameter
+                                       or "auto"}
+        if self.fluid.fitted_rate_range:
+            fluid["fitted_rate_range"] = list(self.fluid.fitted_rate_range)
+        geometry = {k: (str(v) if isinstance(v, Path) else v)
+                    for k, v in self.geometry.__dict__.items()
+                    if v is not None and not (k == "length_unit" and v == 1.0)}
+        drive = {k: v for k, v in self.drive.__dict__.items() if v not in (None, {})}
+        if not self.geometry.is_axial:
+            drive = {k: v for k, v in drive.items() if "angular" in k}
+        else:
+            drive = {k: v for k, v in drive.items() if "angular" not in k}
+        return {"title": self.title, "fluid": fluid, "geometry": geometry, "drive": drive,
+                "mesh": dict(self.mesh.__dict__), "solver": dict(self.solver.__dict__),
+                "output": dict(self.output.__dict__)}
+
+
+def load_case(path: str | Path) -> Case:
+    """Read and validate a TOML case file.
+
+    Raises :class:`CaseError` naming the file for a missing file or a TOML syntax
+    error, and naming the key for any bad value.
+    """
+    path = Path(path)
+    try:
+        data = path.read_bytes()
+    except FileNotFoundError:
+        raise CaseError(str(path), message=f"{path}: no such case file") from None
+    except IsADirectoryError:
+        raise CaseError(str(path), message=f"{path}: is a folder, expected a case file") from None
+    except OSError as err:
+        raise CaseError(str(path), message=f"{path}: cannot read ({err.strerror})") from None
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError:
+        raise CaseError(str(path), message=f"{path}: not a UTF-8 text file") from None
+    if not text.strip():
+        raise CaseError(str(path), message=f"{path}: the case file is empty; it needs "
+                        "[fluid], [geometry] and [drive] sections")
+    try:
+        mapping = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise CaseError(str(path), message=f"{path}: TOML syntax error: {err}") from None
+    return Case.from_dict(mapping, path)
+
+
+# --------------------------------------------------------------------------- sections
+
+def _parse_fluid(table: dict) -> FluidSpec:
+    model_name = _choice(table, "model", "fluid", tuple(MODEL_KEYS))
+    keys = MODEL_KEYS[model_name]
+    yield_stress_model = model_name in ("bingham", "herschel-bulkley")
+    allowed = set(keys) | set(FLUID_COMMON)
+    if not yield_stress_model:
+        allowed.discard("regularisation")
+    try:
+        _check_keys(table, allowed, "fluid")
+    except CaseError as err:
+        key = err.key.split(".", 1)[1]
+        other = [m for m, k in MODEL_KEYS.items() if key in k]
+        if key == "regularisation":
+            raise CaseError(err.key, message=(
+                f"fluid.regularisation applies to yield-stress models (bingham, "
+                f"herschel-bulkley), not to {model_name}")) from None
+        if other:
+            raise CaseError(err.key, message=(
+                f"fluid.{key} is not a parameter of the {model_name} model "
+                f"(it belongs to {', '.join(other)}); {model_name} takes: "
+                f"{', '.join(keys)}")) from None
+        raise
+    values: dict[str, float] = {}
+    flow_index = None
+    if "flow_index" in keys:
+        flow_index = _dimensional(table, "flow_index", "fluid", "dimensionless")
+        values["flow_index"] = flow_index
+    for key, (dimension, default) in keys.items():
+        if key in values:
+            continue
+        values[key] = _dimensional(table, key, "fluid", dimension, default, flow_index)
+    density = None
+    if "density" in table:
+        density = check_positive("fluid.density", _dimensional(table, "density", "fluid", "density"))
+    method = parameter = None
+    if yield_stress_model:
+        method, parameter = _parse_regularisation(table.get("regularisation", {}))
+        values["regularisation"] = method
+        # a placeholder until the solver chooses one from the case's scales
+        values["regularisation_parameter"] = parameter or 1.0
+    rate_range = None
+    if "fitted_rate_range" in table:
+        rate_range = _parse_rate_range(table["fitted_rate_range"])
+    try:
+        model = rheology.MODELS[model_name](**values)
+    except CaseError as err:
+        key = err.key if err.key.startswith("regularisation") else err.key
+        raise CaseError(f"fluid.{key}", message=f"fluid.{err}") from None
+    return FluidSpec(model, density, method, parameter, rate_range)
+
+
+def _parse_regularisation(table) -> tuple[str, float | None]:
+    where = "fluid.regularisation"
+    if not isinstance(table, dict):
+        raise CaseError(where, table, 'a table such as { method = "papanastasiou" }')
+    method = _choice(table, "method", where, rheology.REGULARISATIONS, "papanastasiou")
+    key = "exponent" if method == "papanastasiou" else "critical_rate"
+    other = "critical_rate" if key == "exponent" else "exponent"
+    if other in table:
+        raise CaseError(f"{where}.{other}", message=(
+            f"{where}.{other} does not apply to the {method} method; it takes {key}"))
+    _check_keys(table, ("method", key), where)
+    if key not in table:
+        return method, None
+    dimension = "time" if key == "exponent" else "rate"
+    value = _dimensional(table, key, where, dimension)
+    return method, check_positive(f"{where}.{key}", value)
+
+
+def _parse_rate_range(value) -> tuple[float, float]:
+    key = "fluid.fitted_rate_range"
+    if not isinstance(value, list) or len(value) != 2:
+        raise CaseError(key, value, 'two shear rates, e.g. ["0.1 1/s", "1000 1/s"]')
+    low, high = (quantity(v, "rate", key) for v in value)
+    if not 0 < low < high:
+        raise CaseError(key, value, "0 < lowest rate < highest rate")
+    return (low, high)
+
+
+def _parse_geometry(table: dict, source: Path | None) -> GeometrySpec:
+    shape = _choice(table, "shape", "geometry", SHAPES)
+    keys = GEOMETRY_KEYS[shape]
+    _check_keys(table, ("shape", *keys), "geometry")
+    values: dict[str, Any] = {}
+    for key, dimension in keys.items():
+        if dimension is None:
+            continue
+        values[key] = check_positive(f"geometry.{key}",
+                                     _dimensional(table, key, "geometry", dimension))
+    if shape in ("annulus", "coaxial-cylinders"):
+        if values["inner_radius"] >= values["outer_radius"]:
+            raise CaseError("geometry.inner_radius", table.get("inner_radius"),
+                            f"a value below geometry.outer_radius ({table.get('outer_radius')})")
+    if shape == "annulus":
+        e = _number(table, "eccentricity", "geometry", 0.0)
+        if not 0.0 <= e < 1.0:
+            raise CaseError("geometry.eccentricity", e,
+                            "a number in [0, 1): centre offset / (outer_radius - inner_radius)")
+        values["eccentricity"] = e
+    if shape == "mesh":
+        values.update(_parse_mesh_file(table, source))
+    return GeometrySpec(shape, **values)
+
+
+def _parse_mesh_file(table: dict, source: Path | None) -> dict:
+    if "file" not in table:
+        raise CaseError("geometry.file", message="missing key geometry.file (a mesh file "
+                        "meshio reads: .msh, .vtu, .xdmf, ...)")
+    name = table["file"]
+    if not isinstance(name, str) or not name.strip():
+        raise CaseError("geometry.file", name, "a file name (string)")
+    path = Path(name)
+    if not path.is_absolute():
+        path = (source.parent if source else Path.cwd()) / path
+    if not path.is_file():
+        raise CaseError("geometry.file", name, f"an existing mesh file (looked for {path})")
+    unit = 1.0
+    if "length_unit" in table:
+        unit = check_positive("geometry.length_unit",
+                              quantity(table["length_unit"] if not isinstance(
+                                  table["length_unit"], str) or table["length_unit"][:1].isdigit()
+                                  else "1 " + table["length_unit"], "length",
+                                  "geometry.length_unit"))
+    return {"file": path, "length_unit": unit}
+
+
+def _parse_drive(table: dict, geometry: GeometrySpec) -> DriveSpec:
+    where = "drive"
+    if not geometry.is_axial:
+        _check_keys(table, ("inner_angular_speed", "outer_angular_speed"), where)
+        inner = _dimensional(table, "inner_angular_speed", where, "angular_speed", 0.0)
+        outer = _dimensional(table, "outer_angular_speed", where, "angular_speed", 0.0)
+        if inner == outer:
+            raise CaseError("drive.inner_angular_speed", table.get("inner_angular_speed", 0),
+                            "an angular speed different from drive.outer_angular_speed "
+                            "(equal speeds give rigid rotation, no shear)")
+        return DriveSpec(inner_angular_speed=inner, outer_angular_speed=outer)
+    _check_keys(table, ("pressure_gradient", "flow_rate", "wall_speed"), where)
+    has_gradient, has_rate = "pressure_gradient" in table, "flow_rate" in table
+    if has_gradient == has_rate:
+        raise CaseError("drive", message=(
+            "drive: give exactly one of pressure_gradient (dp/dz, e.g. \"-3 kPa/m\") and "
+            f"flow_rate; got {'both' if has_gradient else 'neither'}"))
+    wall_speed = _parse_wall_speed(table.get("wall_speed", {}), geometry)
+    gradient = rate = None
+    if has_gradient:
+        gradient = _dimensional(table, "pressure_gradient", where, "pressure_gradient")
+        if gradient == 0 and not any(wall_speed.values()):
+            raise CaseError("drive.pressure_gradient", table["pressure_gradient"],
+                            "a non-zero pressure gradient, or a wall_speed (nothing drives "
+                            "the flow)")
+    else:
+        dimension = "flow_rate_per_width" if geometry.shape == "slit" else "flow_rate"
+        try:
+            rate = _dimensional(table, "flow_rate", where, dimension)
+        except CaseError as err:
+            if geometry.shape == "slit":
+                raise CaseError("drive.flow_rate", message=(
+                    f"{err}; a slit's flow rate is per unit width (m^2/s, e.g. "
+                    "\"0.5 L/s/m\")")) from None
+            raise
+        if rate == 0:
+            raise CaseError("drive.flow_rate", table["flow_rate"], "a non-zero flow rate")
+    return DriveSpec(pressure_gradient=gradient, flow_rate=rate, wall_speed=wall_speed)
+
+
+def _parse_wall_speed(table, geometry: GeometrySpec) -> dict[str, float]:
+    where = "drive.wall_speed"
+    if not isinstance(table, dict):
+        raise CaseError(where, table, 'a table of wall names and speeds, e.g. { inner = "0.5 m/s" }')
+    walls = WALLS.get(geometry.shape)
+    if walls is not None:
+        if geometry.shape == "annulus" and geometry.eccentricity > 0:
+            walls = ("inner", "outer")
+        for name in table:
+            if name not in walls:
+                raise CaseError(f"{where}.{name}", message=(
+                    f"{where}.{name}: the {geometry.shape} has no wall named {name!r}"
+                    f"{_suggest(name, walls)}; its walls are: {', '.join(walls)}"))
+    return {name: _dimensional(table, name, where, "velocity") for name in table}
+
+
+def _parse_mesh(table: dict, geometry: GeometrySpec) -> MeshSpec:
+    _check_keys(table, ("cells", "degree", "grading"), "mesh")
+    one_d = geometry.is_one_dimensional
+    high = MAX_CELLS_1D if one_d else MAX_CELLS_2D
+    cells = _whole(table, "cells", "mesh", 200 if one_d else 32, 1, high)
+    if not one_d and cells < 2:
+        raise CaseError("mesh.cells", cells, f"a whole number from 2 to {high}")
+    degree = _whole(table, "degree", "mesh", 2, 1, 2)
+    grading = _number(table, "grading", "mesh", 1.0)
+    if not 1.0 <= grading <= 100.0:
+        raise CaseError("mesh.grading", grading, "a number from 1 (uniform) to 100: the ratio "
+                        "of the largest cell to the cells at a wall")
+    return MeshSpec(cells, degree, grading)
+
+
+def _parse_solver(table: dict) -> SolverSpec:
+    _check_keys(table, ("method", "tolerance", "max_iterations", "linear_solver"), "solver")
+    method = _choice(table, "method", "solver", ("newton", "picard"), "newton")
+    tolerance = _number(table, "tolerance", "solver", 1e-10)
+    if not 1e-14 <= tolerance <= 1e-2:
+        raise CaseError("solver.tolerance", tolerance, "a number from 1e-14 to 1e-2")
+    iterations = _whole(table, "max_iterations", "solver", 100, 1, 10_000)
+    linear = _choice(table, "linear_solver", "solver", ("auto", "direct", "amg"), "auto")
+    return SolverSpec(method, tolerance, iterations, linear)
+
+
+def _parse_output(table: dict) -> OutputSpec:
+    _check_keys(table, ("plots", "fields"), "output")
+    return OutputSpec(_flag(table, "plots", "output", True), _flag(table, "fields", "output", True))
+
+
+__all__ = ["Case", "FluidSpec", "GeometrySpec", "DriveSpec", "MeshSpec", "SolverSpec",
+           "OutputSpec", "load_case"]
