@@ -111,6 +111,13 @@ class Solution:
     seconds: float = 0.0
     regularisation: dict | None = None
     warnings: list[str] = field(default_factory=list)
+    rate_floor: float = 0.0
+
+    def problem(self) -> "_Problem":
+        """The discrete problem this solution solves (for post-processing)."""
+        problem = _Problem(self.domain, self.model)
+        problem.rate_floor = self.rate_floor
+        return problem
 
     def summary(self) -> dict:
         """The dict written to ``summary.json`` (SI units)."""
@@ -206,7 +213,7 @@ class _Problem:
 
 # --------------------------------------------------------------------------- scales
 
-def _invert_flow_curve(model: rheology.Model, stress: float) -> float:
+def invert_flow_curve(model: rheology.Model, stress: float) -> float:
     """The shear rate at which the model's stress equals ``stress`` (> 0)."""
     def gap(log_rate):
         return float(model.stress(np.array([math.exp(log_rate)]))[0]) - stress
@@ -232,7 +239,7 @@ def characteristic_rate(case: Case, domain: Domain, model: rheology.Model) -> fl
             rates.append((max(speeds) - min(speeds)) / L)
         if d.pressure_gradient:
             wall_stress = abs(d.pressure_gradient) * L / 2
-            rates.append(_invert_flow_curve(_viscous_part(model), wall_stress))
+            rates.append(invert_flow_curve(_viscous_part(model), wall_stress))
         if d.flow_rate is not None:
             rates.append(6 * abs(d.flow_rate) / domain.area / L)
     return max(max(rates), 1e-300)
@@ -460,11 +467,18 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None) ->
         model = model.with_regularisation(following)
         problem.model = model
     if yield_stress:
+        estimate = _regularisation_error(problem, u, gradient, target, spec, case) \
+            if converged else None
         regularisation = {"method": model.regularisation,
                           "parameter": model.regularisation_parameter,
                           "unit": model.regularisation_unit,
                           "chosen": "user" if user_parameter is not None else "automatic",
-                          "continuation_stages": stages}
+                          "continuation_stages": stages,
+                          "error_estimate": estimate,
+                          "error_estimate_definition": (
+                              "relative change of the flow rate (torque) when the "
+                              "regularisation is made half as sharp; the error of a "
+                              "regularisation falls as 1/sharpness, so this estimates it")}
     residual = problem.relative_residual(u, gradient)
     converged = converged and residual <= spec.tolerance
     if converged:
@@ -479,4 +493,25 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None) ->
             message += "; try more solver.max_iterations or a finer mesh"
     return Solution(case, domain, model, u, float(gradient) if domain.kind == "axial" else 0.0,
                     bool(converged), used, float(residual), history, message,
-                    time.perf_counter() - started, regularisation)
+                    time.perf_counter() - started, regularisation, [], problem.rate_floor)
+
+
+def _regularisation_error(problem: _Problem, u, gradient, target, spec, case) -> float | None:
+    """Relative change of the flow rate (or torque) with the regularisation half as sharp."""
+    model = problem.model
+    factor = 0.5 if model.regularisation == "papanastasiou" else 2.0
+    softer = _Problem(problem.domain, model.with_regularisation(
+        model.regularisation_parameter * factor))
+    softer.rate_floor = problem.rate_floor
+    u2, g2, ok, _ = _newton(softer, u.copy(), gradient, target, spec.tolerance, 50, [], 0)
+    if not ok:
+        return None
+    if problem.domain.kind == "rotational":
+        inner = problem.domain.walls["inner"].dofs
+        sharp = problem.internal_force(u)[inner].sum()
+        soft = softer.internal_force(u2)[inner].sum()
+    elif target is not None:
+        sharp, soft = gradient, g2
+    else:
+        sharp, soft = problem.flow_rate(u), softer.flow_rate(u2)
+    return float(abs(soft - sharp) / max(abs(sharp), 1e-300))

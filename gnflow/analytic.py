@@ -1,0 +1,951 @@
+"""Reference solutions for fully developed laminar flows of generalized Newtonian fluids.
+
+These are the yardsticks the finite-element solver is checked against, so they share
+nothing with it: this module imports numpy and scipy only and takes the fluid as a
+duck-typed model object (``.stress(rate)``, a monotone flow curve; yield-stress models
+also ``.yield_stress``, ``.consistency``, ``.flow_index``).
+
+Two families of functions:
+
+* **Closed forms** for the textbook cases (Newtonian slit, pipe, annulus and Couette
+  gap; power-law slit, pipe and Couette gap; Bingham slit and pipe), each with its
+  formula and published source in the docstring.
+* **Semi-analytic** solutions for any monotone flow curve: the momentum balance gives
+  the shear stress in closed form up to one constant (found by root finding so the
+  wall speeds are met), the flow curve is inverted for the shear rate, and the rate is
+  integrated by adaptive Gauss-Legendre quadrature with the zero-stress and yield
+  points as breakpoints.
+
+Conventions. Axial velocity ``w`` along ``z``; ``pressure_gradient`` ``G = dp/dz``
+(negative drives the fluid toward +z). Slit: ``y`` from the bottom wall (0) to the top
+wall (``gap``), flow rate per unit width. Pipe and annulus: radius ``r``,
+``Q = int w 2 pi r dr``. ``wall_shear_stress`` is the stress the fluid exerts on each
+wall in +z: ``eta dw/dx`` at the bottom/inner wall, ``-eta dw/dx`` at the top/outer/pipe
+wall. Rotational flow: angular speed ``omega(r)``, ``tau_r_theta = eta r domega/dr``, and
+``torque_per_length`` is what must be applied to the inner cylinder,
+``M = -2 pi r^3 eta domega/dr``, the same at every radius.
+
+>>> import numpy as np
+>>> ref = pipe_newtonian(radius=0.01, viscosity=1e-3, pressure_gradient=-100.0)
+>>> print(f"{ref.flow_rate:.6e}  {float(ref.velocity(0.0)):.4f}")
+3.926991e-04  2.5000
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+from scipy.optimize import brentq
+
+__all__ = [
+    "AxialReference", "RotationalReference", "rate_from_stress",
+    "slit_newtonian", "pipe_newtonian", "annulus_newtonian", "coaxial_newtonian",
+    "slit_power_law", "pipe_power_law", "coaxial_power_law",
+    "pipe_bingham", "slit_bingham",
+    "slit_flow", "pipe_flow", "annulus_flow", "coaxial_flow",
+]
+
+
+@dataclass(frozen=True)
+class AxialReference:
+    """A fully developed axial flow: ``w(x)`` with ``x = y`` (slit) or ``r``.
+
+    ``plugs`` lists the unyielded intervals of ``x`` found by the exact yield-stress
+    method (empty otherwise).
+    """
+
+    velocity: Callable[[np.ndarray], np.ndarray]
+    shear_stress: Callable[[np.ndarray], np.ndarray]
+    flow_rate: float
+    wall_shear_stress: dict[str, float]
+    plugs: tuple[tuple[float, float], ...]
+
+
+@dataclass(frozen=True)
+class RotationalReference:
+    """Rotational flow between coaxial cylinders: ``omega(r)`` and the torque per length."""
+
+    angular_speed: Callable[[np.ndarray], np.ndarray]
+    shear_stress: Callable[[np.ndarray], np.ndarray]
+    torque_per_length: float
+    plugs: tuple[tuple[float, float], ...]
+
+
+# --------------------------------------------------------------------------------------
+# input checks
+
+
+def _positive(name: str, value: float) -> float:
+    value = float(value)
+    if not (0 < value < np.inf):
+        raise ValueError(f"{name} = {value!r}: expected a finite number > 0")
+    return value
+
+
+def _finite(name: str, value: float) -> float:
+    value = float(value)
+    if not np.isfinite(value):
+        raise ValueError(f"{name} = {value!r}: expected a finite number")
+    return value
+
+
+def _radii(inner_radius: float, outer_radius: float) -> tuple[float, float]:
+    inner = _positive("inner_radius", inner_radius)
+    outer = _positive("outer_radius", outer_radius)
+    if not inner < outer:
+        raise ValueError(f"inner_radius = {inner!r}: expected less than outer_radius = {outer!r}")
+    return inner, outer
+
+
+def _as_array(x) -> np.ndarray:
+    return np.asarray(x, dtype=float)
+
+
+# --------------------------------------------------------------------------------------
+# closed forms
+
+
+def slit_newtonian(gap, viscosity, pressure_gradient, bottom_speed=0.0, top_speed=0.0):
+    """Plane Couette-Poiseuille flow of a Newtonian fluid between parallel walls.
+
+    ``w(y) = w_b + (w_t - w_b) y / h - (G / 2 mu) y (h - y)``,
+    ``tau(y) = mu (w_t - w_b) / h + G (y - h/2)``,
+    ``q = h (w_b + w_t) / 2 - G h^3 / (12 mu)`` per unit width.
+
+    Valid for steady laminar fully developed flow between infinite parallel plates
+    (wide slits, aspect ratio >> 1). Source: Bird, Stewart & Lightfoot, *Transport
+    Phenomena*, 2nd ed., ch. 2 (slit flow) and plane Couette flow; the two superpose
+    because the Newtonian equation is linear.
+
+    >>> ref = slit_newtonian(gap=0.01, viscosity=1.0, pressure_gradient=-1200.0)
+    >>> print(f"{ref.flow_rate:.6g} {ref.wall_shear_stress['bottom']:.6g}")
+    0.0001 6
+    """
+    h = _positive("gap", gap)
+    mu = _positive("viscosity", viscosity)
+    G = _finite("pressure_gradient", pressure_gradient)
+    w_b, w_t = float(bottom_speed), float(top_speed)
+
+    def velocity(y):
+        y = _as_array(y)
+        return w_b + (w_t - w_b) * y / h - G / (2 * mu) * y * (h - y)
+
+    def shear_stress(y):
+        return mu * (w_t - w_b) / h + G * (_as_array(y) - h / 2)
+
+    flow_rate = h * (w_b + w_t) / 2 - G * h**3 / (12 * mu)
+    walls = {"bottom": float(shear_stress(0.0)), "top": float(-shear_stress(h))}
+    return AxialReference(velocity, shear_stress, float(flow_rate), walls, ())
+
+
+def pipe_newtonian(radius, viscosity, pressure_gradient):
+    """Hagen-Poiseuille flow in a circular pipe.
+
+    ``w(r) = (-G / 4 mu) (R^2 - r^2)``, ``tau = G r / 2``, ``Q = pi R^4 (-G) / (8 mu)``,
+    wall shear stress ``-G R / 2``.
+
+    Valid for steady laminar fully developed flow (Reynolds number below about 2100,
+    common practice). Source: Bird, Stewart & Lightfoot, *Transport Phenomena*, 2nd ed.,
+    section 2.3.
+
+    >>> ref = pipe_newtonian(radius=0.01, viscosity=1e-3, pressure_gradient=-100.0)
+    >>> print(f"{ref.flow_rate:.6e} {ref.wall_shear_stress['wall']:.3g}")
+    3.926991e-04 0.5
+    """
+    R = _positive("radius", radius)
+    mu = _positive("viscosity", viscosity)
+    G = _finite("pressure_gradient", pressure_gradient)
+
+    def velocity(r):
+        r = _as_array(r)
+        return -G / (4 * mu) * (R**2 - r**2)
+
+    def shear_stress(r):
+        return G * _as_array(r) / 2
+
+    flow_rate = -np.pi * G * R**4 / (8 * mu)
+    return AxialReference(velocity, shear_stress, float(flow_rate),
+                          {"wall": float(-G * R / 2)}, ())
+
+
+def annulus_newtonian(inner_radius, outer_radius, viscosity, pressure_gradient,
+                      inner_speed=0.0, outer_speed=0.0):
+    """Newtonian flow in a concentric annulus, with axially moving walls allowed.
+
+    ``w(r) = w_i + (G / 4 mu)(r^2 - R_i^2) + A ln(r / R_i)``, with
+    ``A = [w_o - w_i - G (R_o^2 - R_i^2) / (4 mu)] / ln(R_o / R_i)``;
+    ``tau = G r / 2 + mu A / r``;
+    ``Q = 2 pi [w_i D / 2 + G D^2 / (16 mu) + A (R_o^2 ln(R_o/R_i) / 2 - D / 4)]``,
+    ``D = R_o^2 - R_i^2``.
+
+    With both walls at rest this is the result of Bird, Stewart & Lightfoot,
+    *Transport Phenomena*, 2nd ed., section 2.4:
+    ``Q = (pi (-G) R_o^4 / 8 mu) [(1 - k^4) - (1 - k^2)^2 / ln(1/k)]``, ``k = R_i/R_o``,
+    with the zero-stress (maximum velocity) radius
+    ``lambda R_o``, ``lambda^2 = (1 - k^2) / (2 ln(1/k))``. The wall motion adds the
+    axial Couette term ``A ln r``, since the equation is linear. Valid for steady
+    laminar fully developed flow.
+
+    >>> ref = annulus_newtonian(0.5, 1.0, 1.0, -8.0)
+    >>> print(f"{ref.flow_rate:.6f}")
+    0.395791
+    """
+    Ri, Ro = _radii(inner_radius, outer_radius)
+    mu = _positive("viscosity", viscosity)
+    G = _finite("pressure_gradient", pressure_gradient)
+    w_i, w_o = float(inner_speed), float(outer_speed)
+    log_ratio = np.log(Ro / Ri)
+    D = Ro**2 - Ri**2
+    A = (w_o - w_i - G * D / (4 * mu)) / log_ratio
+
+    def velocity(r):
+        r = _as_array(r)
+        return w_i + G / (4 * mu) * (r**2 - Ri**2) + A * np.log(r / Ri)
+
+    def shear_stress(r):
+        r = _as_array(r)
+        return G * r / 2 + mu * A / r
+
+    flow_rate = 2 * np.pi * (w_i * D / 2 + G * D**2 / (16 * mu)
+                             + A * (Ro**2 * log_ratio / 2 - D / 4))
+    walls = {"inner": float(shear_stress(Ri)), "outer": float(-shear_stress(Ro))}
+    return AxialReference(velocity, shear_stress, float(flow_rate), walls, ())
+
+
+def coaxial_newtonian(inner_radius, outer_radius, viscosity, inner_angular_speed,
+                      outer_angular_speed=0.0):
+    """Circular Couette flow of a Newtonian fluid between coaxial cylinders.
+
+    ``omega(r) = a + b / r^2`` with ``b = (W_i - W_o) R_i^2 R_o^2 / (R_o^2 - R_i^2)``,
+    ``a = (W_o R_o^2 - W_i R_i^2) / (R_o^2 - R_i^2)``; ``tau_r_theta = -2 mu b / r^2``;
+    torque per length ``M = 4 pi mu b``, i.e.
+    ``M = 4 pi mu (W_i - W_o) R_i^2 R_o^2 / (R_o^2 - R_i^2)``.
+
+    Valid below the onset of Taylor vortices. Source: Bird, Stewart & Lightfoot,
+    *Transport Phenomena*, 2nd ed., section 3.6 (tangential annular flow).
+
+    >>> ref = coaxial_newtonian(1.0, 2.0, 1.0, 3.0)
+    >>> print(f"{ref.torque_per_length / np.pi:.6g}")
+    16
+    """
+    Ri, Ro = _radii(inner_radius, outer_radius)
+    mu = _positive("viscosity", viscosity)
+    W_i = _finite("inner_angular_speed", inner_angular_speed)
+    W_o = _finite("outer_angular_speed", outer_angular_speed)
+    b = (W_i - W_o) * Ri**2 * Ro**2 / (Ro**2 - Ri**2)
+    a = (W_o * Ro**2 - W_i * Ri**2) / (Ro**2 - Ri**2)
+
+    def angular_speed(r):
+        return a + b / _as_array(r) ** 2
+
+    def shear_stress(r):
+        return -2 * mu * b / _as_array(r) ** 2
+
+    return RotationalReference(angular_speed, shear_stress, float(4 * np.pi * mu * b), ())
+
+
+def slit_power_law(gap, consistency, flow_index, pressure_gradient):
+    """Pressure-driven flow of a power-law fluid between stationary parallel walls.
+
+    With half-gap ``B = h/2``, ``s = |y - B|`` and ``tau_w = |G| B``:
+    ``w = sgn(-G) (n / (n+1)) (|G| / K)^(1/n) (B^(1+1/n) - s^(1+1/n))``,
+    ``tau = G (y - B)``, ``q = sgn(-G) (2 n B^2 / (2n+1)) (tau_w / K)^(1/n)``.
+
+    Valid where ``tau = K |rate|^(n-1) rate`` holds over the rates present (the power law
+    has no Newtonian plateau). Source: Bird, Stewart & Lightfoot, *Transport Phenomena*,
+    2nd ed., section 8.3 (power-law fluids in simple geometries).
+
+    >>> ref = slit_power_law(gap=2.0, consistency=1.0, flow_index=0.5, pressure_gradient=-1.0)
+    >>> print(f"{ref.flow_rate:.6g}")
+    0.5
+    """
+    h = _positive("gap", gap)
+    K = _positive("consistency", consistency)
+    n = _positive("flow_index", flow_index)
+    G = _finite("pressure_gradient", pressure_gradient)
+    B = h / 2
+    direction = -np.sign(G)
+    speed_scale = (abs(G) / K) ** (1 / n)
+
+    def velocity(y):
+        s = np.abs(_as_array(y) - B)
+        return direction * n / (n + 1) * speed_scale * (B ** (1 + 1 / n) - s ** (1 + 1 / n))
+
+    def shear_stress(y):
+        return G * (_as_array(y) - B)
+
+    flow_rate = direction * 2 * n / (2 * n + 1) * speed_scale * B ** (2 + 1 / n)
+    walls = {"bottom": float(-G * B), "top": float(-G * B)}
+    return AxialReference(velocity, shear_stress, float(flow_rate), walls, ())
+
+
+def pipe_power_law(radius, consistency, flow_index, pressure_gradient):
+    """Pressure-driven flow of a power-law fluid in a circular pipe.
+
+    With ``tau_w = |G| R / 2``:
+    ``w = sgn(-G) (n / (n+1)) (|G| / 2K)^(1/n) (R^(1+1/n) - r^(1+1/n))``,
+    ``tau = G r / 2``, ``Q = sgn(-G) (pi n R^3 / (3n+1)) (tau_w / K)^(1/n)``.
+
+    Valid over the range of rates the power law was fitted on. Source: Bird, Stewart &
+    Lightfoot, *Transport Phenomena*, 2nd ed., section 8.3, the power-law tube flow
+    example (recalled from memory).
+
+    >>> ref = pipe_power_law(radius=1.0, consistency=1.0, flow_index=1.0, pressure_gradient=-8.0)
+    >>> print(f"{ref.flow_rate / np.pi:.6g}")
+    1
+    """
+    R = _positive("radius", radius)
+    K = _positive("consistency", consistency)
+    n = _positive("flow_index", flow_index)
+    G = _finite("pressure_gradient", pressure_gradient)
+    direction = -np.sign(G)
+    speed_scale = (abs(G) / (2 * K)) ** (1 / n)
+
+    def velocity(r):
+        r = _as_array(r)
+        return direction * n / (n + 1) * speed_scale * (R ** (1 + 1 / n) - r ** (1 + 1 / n))
+
+    def shear_stress(r):
+        return G * _as_array(r) / 2
+
+    wall_stress = abs(G) * R / 2
+    flow_rate = direction * np.pi * n * R**3 / (3 * n + 1) * (wall_stress / K) ** (1 / n)
+    return AxialReference(velocity, shear_stress, float(flow_rate),
+                          {"wall": float(-G * R / 2)}, ())
+
+
+def coaxial_power_law(inner_radius, outer_radius, consistency, flow_index,
+                      inner_angular_speed, outer_angular_speed=0.0):
+    """Circular Couette flow of a power-law fluid between coaxial cylinders.
+
+    The torque balance gives ``|tau| = |M| / (2 pi r^2)``, the power law the rate
+    ``|r domega/dr| = (|tau| / K)^(1/n)``; integrating from the outer cylinder:
+    ``omega(r) = W_o + sgn(dW) (n/2) (|M| / 2 pi K)^(1/n) (r^(-2/n) - R_o^(-2/n))``, so
+    ``M = sgn(dW) 2 pi K [2 |dW| / (n (R_i^(-2/n) - R_o^(-2/n)))]^n``, ``dW = W_i - W_o``.
+    ``n = 1`` gives the Newtonian ``M = 4 pi mu dW R_i^2 R_o^2 / (R_o^2 - R_i^2)``.
+
+    Valid below the onset of secondary flow, over the rates the power law was fitted
+    on. Derived here from the torque balance; the same result is in the rheometry
+    literature, e.g. Macosko, *Rheology: Principles, Measurements and Applications*
+    (1994), the Couette-geometry chapter (recalled from memory).
+
+    >>> ref = coaxial_power_law(1.0, 2.0, 1.0, 1.0, 3.0)
+    >>> print(f"{ref.torque_per_length / np.pi:.6g}")
+    16
+    """
+    Ri, Ro = _radii(inner_radius, outer_radius)
+    K = _positive("consistency", consistency)
+    n = _positive("flow_index", flow_index)
+    W_i = _finite("inner_angular_speed", inner_angular_speed)
+    W_o = _finite("outer_angular_speed", outer_angular_speed)
+    difference = W_i - W_o
+    direction = np.sign(difference)
+    span = Ri ** (-2 / n) - Ro ** (-2 / n)
+    torque = direction * 2 * np.pi * K * (2 * abs(difference) / (n * span)) ** n
+    rate_scale = (abs(torque) / (2 * np.pi * K)) ** (1 / n)
+
+    def angular_speed(r):
+        r = _as_array(r)
+        return W_o + direction * n / 2 * rate_scale * (r ** (-2 / n) - Ro ** (-2 / n))
+
+    def shear_stress(r):
+        return -torque / (2 * np.pi * _as_array(r) ** 2)
+
+    return RotationalReference(angular_speed, shear_stress, float(torque), ())
+
+
+def pipe_bingham(radius, yield_stress, plastic_viscosity, pressure_gradient):
+    """Bingham plastic in a circular pipe: the Buckingham-Reiner solution.
+
+    With ``tau_w = |G| R / 2``, ``phi = tau_y / tau_w`` and plug radius
+    ``r_p = phi R = 2 tau_y / |G|``:
+    ``w = sgn(-G) [(|G| / 4 mu_p)(R^2 - r^2) - (tau_y / mu_p)(R - r)]`` for ``r >= r_p``,
+    ``w = w(r_p)`` in the plug;
+    ``Q = sgn(-G) (pi R^4 |G| / 8 mu_p) (1 - 4 phi / 3 + phi^4 / 3)`` for ``phi < 1``,
+    and no flow for ``phi >= 1``.
+
+    Valid for an ideal (unregularised) Bingham plastic in steady laminar flow.
+    Source: Buckingham (1921), Proc. ASTM 21; Reiner; also Bird, Stewart & Lightfoot,
+    *Transport Phenomena*, 2nd ed., ch. 8 (recalled from memory).
+
+    >>> ref = pipe_bingham(radius=1.0, yield_stress=1.0, plastic_viscosity=1.0,
+    ...                    pressure_gradient=-4.0)
+    >>> print(f"{ref.flow_rate / np.pi:.6g} {ref.plugs}")
+    0.177083 ((0.0, 0.5),)
+    """
+    R = _positive("radius", radius)
+    tau_y = _positive("yield_stress", yield_stress)
+    mu_p = _positive("plastic_viscosity", plastic_viscosity)
+    G = _finite("pressure_gradient", pressure_gradient)
+    direction = -np.sign(G)
+    plug_radius = min(2 * tau_y / abs(G), R) if G != 0 else R
+    phi = plug_radius / R
+
+    def velocity(r):
+        rho = np.clip(_as_array(r), plug_radius, R)
+        return direction * (abs(G) / (4 * mu_p) * (R**2 - rho**2) - tau_y / mu_p * (R - rho))
+
+    def shear_stress(r):
+        return G * _as_array(r) / 2
+
+    flow_rate = direction * np.pi * R**4 * abs(G) / (8 * mu_p) * (1 - 4 * phi / 3 + phi**4 / 3)
+    return AxialReference(velocity, shear_stress, float(flow_rate),
+                          {"wall": float(-G * R / 2)}, ((0.0, float(plug_radius)),))
+
+
+def slit_bingham(gap, yield_stress, plastic_viscosity, pressure_gradient):
+    """Bingham plastic between stationary parallel walls (plane Poiseuille flow).
+
+    With half-gap ``B = h/2``, ``s = |y - B|``, ``tau_w = |G| B``, ``phi = tau_y / tau_w``
+    and plug half-width ``s_p = phi B = tau_y / |G|``:
+    ``w = sgn(-G) [(|G| / 2 mu_p)(B^2 - s^2) - (tau_y / mu_p)(B - s)]`` for ``s >= s_p``,
+    ``w = w(s_p)`` in the plug;
+    ``q = sgn(-G) (2 |G| B^3 / 3 mu_p) (1 - 3 phi / 2 + phi^3 / 2)`` for ``phi < 1``,
+    no flow for ``phi >= 1``.
+
+    Valid for an ideal Bingham plastic in steady laminar flow between infinite plates.
+    Source: the plane counterpart of Buckingham-Reiner, e.g. Bird, Dai & Yarusso (1983),
+    Rev. Chem. Eng. 1, 1 (recalled from memory); derived here by integrating the linear
+    stress profile.
+
+    >>> ref = slit_bingham(gap=2.0, yield_stress=0.5, plastic_viscosity=1.0,
+    ...                    pressure_gradient=-1.0)
+    >>> print(f"{ref.flow_rate:.6g} {ref.plugs}")
+    0.208333 ((0.5, 1.5),)
+    """
+    h = _positive("gap", gap)
+    tau_y = _positive("yield_stress", yield_stress)
+    mu_p = _positive("plastic_viscosity", plastic_viscosity)
+    G = _finite("pressure_gradient", pressure_gradient)
+    B = h / 2
+    direction = -np.sign(G)
+    plug_half_width = min(tau_y / abs(G), B) if G != 0 else B
+    phi = plug_half_width / B
+
+    def velocity(y):
+        s = np.clip(np.abs(_as_array(y) - B), plug_half_width, B)
+        return direction * (abs(G) / (2 * mu_p) * (B**2 - s**2) - tau_y / mu_p * (B - s))
+
+    def shear_stress(y):
+        return G * (_as_array(y) - B)
+
+    flow_rate = direction * 2 * abs(G) * B**3 / (3 * mu_p) * (1 - 1.5 * phi + 0.5 * phi**3)
+    walls = {"bottom": float(-G * B), "top": float(-G * B)}
+    plug = ((float(B - plug_half_width), float(B + plug_half_width)),)
+    return AxialReference(velocity, shear_stress, float(flow_rate), walls, plug)
+
+
+# --------------------------------------------------------------------------------------
+# inverting the flow curve
+
+# Newton's method runs on ln(tau) against ln(rate): for power-law-like curves that
+# relation is nearly straight, so a step or two suffices; a bracket kept alongside
+# catches the flat stretches of regularised yield-stress curves.
+_LOG_RATE_TOLERANCE = 1e-14
+_BRACKET_STEP = 8.0      # widen the log-rate bracket by e^8 (about 3000x) per try
+_LOG_RATE_FLOOR = -700.0  # below exp(-700) the rate is zero in double precision
+
+
+def _yield_stress(model) -> float:
+    return float(getattr(model, "yield_stress", 0.0) or 0.0)
+
+
+def _exact_yield_stress(model, regularised: bool) -> float:
+    """The yield stress the exact inverse uses; 0 when the flow curve is inverted."""
+    return 0.0 if regularised else _yield_stress(model)
+
+
+def _log_slope(model, rate, stress):
+    """d ln tau / d ln rate, from the model's tangent if it has one."""
+    derivative = getattr(model, "stress_derivative", None)
+    if derivative is not None:
+        return rate * _as_array(derivative(rate)) / stress
+    step = 1e-7
+    return (np.log(_as_array(model.stress(rate * np.exp(step)))) - np.log(stress)) / step
+
+
+def _log_stress_gap(model, log_rate, log_target):
+    """ln tau(rate) - ln target; overflow to inf is fine, it only says 'too high'."""
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        return np.log(_as_array(model.stress(np.exp(log_rate)))) - log_target
+
+
+def _invert_flow_curve(model, stress):
+    """Rate magnitudes with ``model.stress(rate) = stress`` (stress >= 0), elementwise."""
+    stress = _as_array(stress)
+    flat_stress = stress.ravel()
+    rate = np.zeros(flat_stress.size)
+    todo = np.flatnonzero(flat_stress > 0)
+    log_target = np.log(flat_stress[todo])
+
+    # bracket each root in ln(rate): stress(e^lower) < target <= stress(e^upper),
+    # starting from 1/s and widening outwards
+    rising = _log_stress_gap(model, np.zeros(todo.size), log_target) < 0
+    lower = np.where(rising, 0.0, -_BRACKET_STEP)
+    upper = np.where(rising, _BRACKET_STEP, 0.0)
+    pending = np.flatnonzero(rising)
+    while pending.size:
+        pending = pending[_log_stress_gap(model, upper[pending], log_target[pending]) < 0]
+        if np.any(upper[pending] > -_LOG_RATE_FLOOR):
+            raise ValueError(f"{getattr(model, 'name', 'model')}: a shear stress of "
+                             f"{flat_stress[todo[pending[0]]]:g} Pa lies beyond its flow curve")
+        lower[pending] = upper[pending]
+        upper[pending] += _BRACKET_STEP
+    pending = np.flatnonzero(~rising)
+    while pending.size:
+        still_high = _log_stress_gap(model, lower[pending], log_target[pending]) >= 0
+        pending = pending[still_high & (lower[pending] >= _LOG_RATE_FLOOR)]
+        upper[pending] = lower[pending]
+        lower[pending] -= _BRACKET_STEP
+    # a root below e^-700 is a zero rate in double precision
+    log_rate = np.where(lower < _LOG_RATE_FLOOR, -np.inf, 0.5 * (lower + upper))
+
+    active = np.flatnonzero(np.isfinite(log_rate))
+    for _ in range(300):
+        if active.size == 0:
+            break
+        u, lo, hi = log_rate[active], lower[active], upper[active]
+        rate_now = np.exp(u)
+        with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+            stress_now = _as_array(model.stress(rate_now))
+            gap = np.log(stress_now) - log_target[active]
+            step = -gap / _log_slope(model, rate_now, stress_now)
+        below = gap < 0
+        lo, hi = np.where(below, u, lo), np.where(below, hi, u)
+        candidate = u + step
+        outside = ~np.isfinite(candidate) | (candidate <= lo) | (candidate >= hi)
+        candidate = np.where(gap == 0, u, np.where(outside, 0.5 * (lo + hi), candidate))
+        resolution = _LOG_RATE_TOLERANCE * np.maximum(1.0, np.abs(u))
+        done = (np.abs(candidate - u) <= resolution) | (hi - lo <= resolution)
+        log_rate[active], lower[active], upper[active] = candidate, lo, hi
+        active = active[~done]
+    rate[todo] = np.exp(log_rate)
+    return rate.reshape(stress.shape)
+
+
+def rate_from_stress(model, stress, regularised=False):
+    """Shear-rate magnitude at the given shear-stress magnitude(s).
+
+    For a yield-stress model (``yield_stress > 0``) with ``regularised=False``, the exact
+    Herschel-Bulkley inverse ``rate = ((|tau| - tau_y) / K)^(1/n)`` for ``|tau| > tau_y``,
+    zero otherwise (Bingham: ``n = 1``, ``K`` the plastic viscosity). Otherwise
+    ``model.stress`` itself is inverted by a bracketed Newton iteration on
+    ``ln tau(ln rate)``, to about 1e-14 relative.
+
+    >>> class Linear:
+    ...     name = "newtonian"
+    ...     def stress(self, rate):
+    ...         return 2.0 * np.asarray(rate, dtype=float)
+    >>> rate_from_stress(Linear(), np.array([0.0, 1.0, 8.0]))
+    array([0. , 0.5, 4. ])
+    """
+    stress = _as_array(stress)
+    if np.any(stress < 0) or not np.all(np.isfinite(stress)):
+        raise ValueError("rate_from_stress takes finite stress magnitudes (>= 0)")
+    tau_y = _exact_yield_stress(model, regularised)
+    if tau_y > 0:
+        excess = np.maximum(stress - tau_y, 0.0)
+        return (excess / model.consistency) ** (1 / model.flow_index)
+    return _invert_flow_curve(model, stress)
+
+
+def _signed_rate(model, stress, regularised):
+    """The velocity gradient with the sign of the shear stress (eta > 0)."""
+    stress = _as_array(stress)
+    return np.sign(stress) * rate_from_stress(model, np.abs(stress), regularised)
+
+
+def _stress_at_rate(model, rate: float) -> float:
+    if rate == 0:
+        return 0.0
+    return float(_as_array(model.stress(np.array([rate])))[0])
+
+
+# --------------------------------------------------------------------------------------
+# quadrature and root finding
+
+_GAUSS_NODES, _GAUSS_WEIGHTS = np.polynomial.legendre.leggauss(10)
+_QUADRATURE_TOLERANCE = 1e-13   # relative to the integral of |integrand|
+_MAX_BISECTIONS = 60            # pieces shorter than 2^-60 of the span add nothing visible
+
+
+def _gauss_legendre(integrand, lower, upper):
+    half = 0.5 * (upper - lower)
+    centre = 0.5 * (upper + lower)
+    x = centre[:, None] + half[:, None] * _GAUSS_NODES
+    return half * (integrand(x) @ _GAUSS_WEIGHTS)
+
+
+def _integrate_pieces(integrand, lower, upper):
+    """Integrals of ``integrand`` over each ``[lower_k, upper_k]``, all pieces at once.
+
+    Adaptive bisection: a piece is accepted when its 10-point Gauss-Legendre value and
+    the sum over its two halves agree to a share of the tolerance proportional to its
+    length; otherwise both halves go on. The refined sum is kept. Endpoint kinks of the
+    rate (zero stress, yield points) are expected at piece ends, where bisection
+    resolves them geometrically.
+    """
+    lower = _as_array(lower).copy()
+    upper = _as_array(upper).copy()
+    total = np.zeros(lower.size)
+    owner = np.arange(lower.size)
+    whole = _gauss_legendre(integrand, lower, upper)
+    span = np.sum(upper - lower)
+    error_per_length = _QUADRATURE_TOLERANCE * np.sum(np.abs(whole)) / span
+    for depth in range(_MAX_BISECTIONS):
+        middle = 0.5 * (lower + upper)
+        left = _gauss_legendre(integrand, lower, middle)
+        right = _gauss_legendre(integrand, middle, upper)
+        refined = left + right
+        accepted = ((np.abs(refined - whole) <= error_per_length * (upper - lower))
+                    | (middle <= lower) | (middle >= upper) | (depth == _MAX_BISECTIONS - 1))
+        np.add.at(total, owner[accepted], refined[accepted])
+        going_on = ~accepted
+        if not going_on.any():
+            break
+        lower, middle, upper = lower[going_on], middle[going_on], upper[going_on]
+        lower, upper = np.concatenate([lower, middle]), np.concatenate([middle, upper])
+        whole = np.concatenate([left[going_on], right[going_on]])
+        owner = np.concatenate([owner[going_on], owner[going_on]])
+    return total
+
+
+def _integral(integrand, breakpoints):
+    """Integral over ``[breakpoints[0], breakpoints[-1]]``, split at the breakpoints."""
+    return float(np.sum(_integrate_pieces(integrand, breakpoints[:-1], breakpoints[1:])))
+
+
+def _cumulative_integral(integrand, breakpoints, points, from_upper):
+    """``int_{x0}^{x} integrand`` (or ``int_x^{x1}`` if ``from_upper``) at each point.
+
+    The evaluation points are merged with the breakpoints, each gap between neighbours
+    is integrated once, and the pieces are summed cumulatively; so the cost is linear
+    in the number of points and the accuracy that of a single adaptive quadrature.
+    """
+    points = _as_array(points)
+    start, end = breakpoints[0], breakpoints[-1]
+    slack = 1e-12 * (end - start)
+    flat = points.ravel()
+    if np.any(flat < start - slack) or np.any(flat > end + slack):
+        raise ValueError(f"positions must lie in [{start:g}, {end:g}]")
+    flat = np.clip(flat, start, end)
+    nodes = np.unique(np.concatenate([flat, breakpoints]))
+    pieces = _integrate_pieces(integrand, nodes[:-1], nodes[1:])
+    if from_upper:
+        cumulative = np.concatenate([np.cumsum(pieces[::-1])[::-1], [0.0]])
+    else:
+        cumulative = np.concatenate([[0.0], np.cumsum(pieces)])
+    return cumulative[np.searchsorted(nodes, flat)].reshape(points.shape)
+
+
+def _breakpoints(lower, upper, positions):
+    """Sorted ``[lower, interior positions..., upper]``."""
+    positions = np.asarray([p for p in positions if lower < p < upper], dtype=float)
+    return np.unique(np.concatenate([[lower], positions, [upper]]))
+
+
+def _stress_levels(model):
+    """Stress values where the rate has a kink: zero, and +-yield stress."""
+    tau_y = _yield_stress(model)
+    return (0.0, tau_y, -tau_y) if tau_y > 0 else (0.0,)
+
+
+def _plug_intervals(stress_field, breakpoints, tau_y):
+    """Intervals between breakpoints where ``|tau| <= tau_y``, neighbours merged."""
+    if tau_y <= 0:
+        return ()
+    plugs = []
+    for a, b in zip(breakpoints[:-1], breakpoints[1:]):
+        if abs(float(stress_field(0.5 * (a + b)))) <= tau_y:
+            if plugs and plugs[-1][1] == a:
+                plugs[-1] = (plugs[-1][0], float(b))
+            else:
+                plugs.append((float(a), float(b)))
+    return tuple(plugs)
+
+
+def _increasing_root(residual, scale):
+    """Root of a non-decreasing ``residual``, bracketed by widening ``[-scale, scale]``."""
+    lower, upper = -scale, scale
+    for _ in range(200):
+        if residual(lower) <= 0:
+            break
+        lower *= 2
+    for _ in range(200):
+        if residual(upper) >= 0:
+            break
+        upper *= 2
+    return brentq(residual, lower, upper, xtol=1e-15 * scale, rtol=4 * np.finfo(float).eps,
+                  maxiter=500)
+
+
+# --------------------------------------------------------------------------------------
+# semi-analytic axial flows
+
+
+def _axial_reference(model, regularised, stress_field, breakpoints, lower_speed, upper_speed,
+                     axisymmetric, wall_names, anchor_at_upper):
+    """Assemble an :class:`AxialReference` once the shear stress field is known."""
+    lower, upper = breakpoints[0], breakpoints[-1]
+
+    def shear_rate(x):
+        return _signed_rate(model, stress_field(x), regularised)
+
+    def velocity(x):
+        if anchor_at_upper:
+            return upper_speed - _cumulative_integral(shear_rate, breakpoints, x, True)
+        return lower_speed + _cumulative_integral(shear_rate, breakpoints, x, False)
+
+    # Q = int w dm with m = x (slit) or pi r^2; by parts, Q = [m w] - int m dw/dx dx,
+    # a single quadrature of the rate instead of a quadrature of a quadrature.
+    def moment_weight(x):
+        return np.pi * x**2 if axisymmetric else x
+
+    moment = _integral(lambda x: moment_weight(x) * shear_rate(x), breakpoints)
+    flow_rate = (moment_weight(upper) * upper_speed - moment_weight(lower) * lower_speed
+                 - moment)
+    lower_wall, upper_wall = wall_names
+    walls = {}
+    if lower_wall:
+        walls[lower_wall] = float(stress_field(lower))
+    walls[upper_wall] = float(-stress_field(upper))
+    plugs = _plug_intervals(stress_field, breakpoints, _exact_yield_stress(model, regularised))
+
+    def shear_stress(x):
+        return stress_field(_as_array(x))
+
+    return AxialReference(velocity, shear_stress, float(flow_rate), walls, plugs)
+
+
+def slit_flow(model, gap, pressure_gradient, bottom_speed=0.0, top_speed=0.0,
+              regularised=False):
+    """Flow of any GN fluid between parallel walls, driven by pressure and wall motion.
+
+    The momentum balance ``dtau/dy = G`` gives ``tau(y) = tau_b + G y`` with ``tau_b`` the
+    stress on the bottom wall; ``dw/dy = sgn(tau) rate(|tau|)`` and ``tau_b`` is found by
+    root finding so that ``int_0^h dw/dy dy = w_t - w_b``. The velocity is the cumulative
+    integral of the rate, ``q = h w_t - int_0^h y dw/dy dy``.
+
+    With ``regularised=False`` a yield-stress fluid is treated as ideal (true plugs).
+    If the walls move together and ``|G| h / 2 <= tau_y`` the whole gap is rigid; the
+    stress is then indeterminate and the symmetric field ``tau_b = -G h / 2`` (the limit
+    of any regularisation) is reported. Valid for steady laminar fully developed flow.
+    Source: the construction is the standard one for GN slit flow, e.g. Bird, Stewart &
+    Lightfoot, *Transport Phenomena*, 2nd ed., section 8.3.
+
+    >>> class Linear:
+    ...     name = "newtonian"
+    ...     def stress(self, rate):
+    ...         return np.asarray(rate, dtype=float)
+    >>> ref = slit_flow(Linear(), gap=0.01, pressure_gradient=-1200.0)
+    >>> print(f"{ref.flow_rate:.10f}")
+    0.0001000000
+    """
+    h = _positive("gap", gap)
+    G = _finite("pressure_gradient", pressure_gradient)
+    w_b = _finite("bottom_speed", bottom_speed)
+    w_t = _finite("top_speed", top_speed)
+    speed_difference = w_t - w_b
+    tau_y = _exact_yield_stress(model, regularised)
+
+    def stress_field_for(bottom_stress):
+        return lambda y: bottom_stress + G * _as_array(y)
+
+    def breakpoints_for(bottom_stress):
+        if G == 0:
+            return _breakpoints(0.0, h, [])
+        return _breakpoints(0.0, h, [(level - bottom_stress) / G
+                                     for level in _stress_levels(model)])
+
+    def residual(bottom_stress):
+        field = stress_field_for(bottom_stress)
+        rate = _integral(lambda y: _signed_rate(model, field(y), regularised),
+                         breakpoints_for(bottom_stress))
+        return rate - speed_difference
+
+    scale = abs(G) * h + _stress_at_rate(model, abs(speed_difference) / h) + tau_y
+    rigid = speed_difference == 0 and abs(G) * h / 2 <= tau_y
+    if scale == 0 or rigid:
+        bottom_stress = -G * h / 2
+    else:
+        bottom_stress = _increasing_root(residual, scale)
+    return _axial_reference(model, regularised, stress_field_for(bottom_stress),
+                            breakpoints_for(bottom_stress), w_b, w_t, False,
+                            ("bottom", "top"), anchor_at_upper=False)
+
+
+def pipe_flow(model, radius, pressure_gradient, regularised=False):
+    """Pressure-driven flow of any GN fluid in a circular pipe.
+
+    ``tau(r) = G r / 2`` (regularity on the axis), ``dw/dr = sgn(tau) rate(|tau|)``,
+    ``w(r) = -int_r^R dw/dr``, ``Q = -pi int_0^R r^2 dw/dr dr``. With
+    ``regularised=False`` a yield-stress fluid has its exact plug ``r <= 2 tau_y / |G|``.
+    This is the Rabinowitsch-Mooney construction (Bird, Stewart & Lightfoot,
+    *Transport Phenomena*, 2nd ed., section 8.3; recalled from memory).
+
+    >>> class Linear:
+    ...     name = "newtonian"
+    ...     def stress(self, rate):
+    ...         return 1e-3 * np.asarray(rate, dtype=float)
+    >>> print(f"{pipe_flow(Linear(), 0.01, -100.0).flow_rate:.6e}")
+    3.926991e-04
+    """
+    R = _positive("radius", radius)
+    G = _finite("pressure_gradient", pressure_gradient)
+
+    def stress_field(r):
+        return G * _as_array(r) / 2
+
+    positions = [2 * level / G for level in _stress_levels(model)] if G != 0 else []
+    return _axial_reference(model, regularised, stress_field, _breakpoints(0.0, R, positions),
+                            0.0, 0.0, True, (None, "wall"), anchor_at_upper=True)
+
+
+def _annulus_stress_roots(G, C, level):
+    """Radii where ``G r / 2 + C / r = level``: roots of ``G r^2/2 - level r + C = 0``."""
+    if G == 0:
+        return [C / level] if level != 0 else []
+    discriminant = level**2 - 2 * G * C
+    if discriminant < 0:
+        return []
+    # the cancellation-free form of the quadratic formula
+    q = 0.5 * (level + np.copysign(np.sqrt(discriminant), level))
+    roots = [q / (G / 2)] if q != 0 else []
+    if q != 0:
+        roots.append(C / q)
+    return roots
+
+
+def annulus_flow(model, inner_radius, outer_radius, pressure_gradient, inner_speed=0.0,
+                 outer_speed=0.0, regularised=False):
+    """Flow of any GN fluid in a concentric annulus, by pressure and axial wall motion.
+
+    ``(1/r) d(r tau)/dr = G`` gives ``tau(r) = G r / 2 + C / r``; ``C`` is found by root
+    finding so that ``int dw/dr dr = w_o - w_i``. The stress vanishes at the zero-stress
+    radius ``r_0 = sqrt(-2 C / G)`` where that lies in the gap (the velocity maximum
+    for pressure-driven flow). ``Q = pi (R_o^2 w_o - R_i^2 w_i) - pi int r^2 dw/dr dr``.
+
+    With ``regularised=False`` a yield-stress fluid has exact plugs where
+    ``|tau| <= tau_y``. If the walls move together and some ``C`` leaves the whole gap
+    unyielded, nothing flows and the stress is indeterminate; the Newtonian field
+    ``C = -G (R_o^2 - R_i^2) / (4 ln(R_o/R_i))`` (the limit of any regularisation),
+    clipped to the admissible range, is reported. Valid for steady laminar fully
+    developed flow. The Newtonian case reduces to Bird, Stewart & Lightfoot,
+    *Transport Phenomena*, 2nd ed., section 2.4; the construction for GN fluids
+    follows e.g. Fredrickson & Bird (1958), Ind. Eng. Chem. 50 (recalled from memory).
+
+    >>> class Linear:
+    ...     name = "newtonian"
+    ...     def stress(self, rate):
+    ...         return np.asarray(rate, dtype=float)
+    >>> print(f"{annulus_flow(Linear(), 0.5, 1.0, -8.0).flow_rate:.6f}")
+    0.395791
+    """
+    Ri, Ro = _radii(inner_radius, outer_radius)
+    G = _finite("pressure_gradient", pressure_gradient)
+    w_i = _finite("inner_speed", inner_speed)
+    w_o = _finite("outer_speed", outer_speed)
+    speed_difference = w_o - w_i
+    tau_y = _exact_yield_stress(model, regularised)
+
+    def stress_field_for(C):
+        return lambda r: G * _as_array(r) / 2 + C / _as_array(r)
+
+    def breakpoints_for(C):
+        roots = [r for level in _stress_levels(model) for r in _annulus_stress_roots(G, C, level)]
+        return _breakpoints(Ri, Ro, roots)
+
+    def residual(C):
+        field = stress_field_for(C)
+        rate = _integral(lambda r: _signed_rate(model, field(r), regularised),
+                         breakpoints_for(C))
+        return rate - speed_difference
+
+    # C values with |tau| <= tau_y everywhere: -tau_y r - G r^2/2 <= C <= tau_y r - G r^2/2;
+    # each bound is a quadratic in r, extreme at an end or at its vertex.
+    rigid_range = None
+    if tau_y > 0 and speed_difference == 0:
+        candidates = [Ri, Ro] + ([float(np.clip(-tau_y / G, Ri, Ro)),
+                                  float(np.clip(tau_y / G, Ri, Ro))] if G != 0 else [])
+        r = np.array(candidates)
+        least, most = np.max(-tau_y * r - G * r**2 / 2), np.min(tau_y * r - G * r**2 / 2)
+        if least <= most:
+            rigid_range = (least, most)
+    scale = Ro * (abs(G) * Ro / 2 + _stress_at_rate(model, abs(speed_difference) / (Ro - Ri))
+                  + tau_y)
+    newtonian_C = -G * (Ro**2 - Ri**2) / (4 * np.log(Ro / Ri))
+    if rigid_range is not None:
+        C = float(np.clip(newtonian_C, *rigid_range))
+    elif scale == 0:
+        C = 0.0
+    else:
+        C = _increasing_root(residual, scale)
+    return _axial_reference(model, regularised, stress_field_for(C), breakpoints_for(C),
+                            w_i, w_o, True, ("inner", "outer"), anchor_at_upper=False)
+
+
+def coaxial_flow(model, inner_radius, outer_radius, inner_angular_speed,
+                 outer_angular_speed=0.0, regularised=False):
+    """Rotational (circular Couette) flow of any GN fluid between coaxial cylinders.
+
+    A constant torque per length ``M`` gives ``tau_r_theta = -M / (2 pi r^2)``, the flow
+    curve ``r domega/dr = sgn(tau) rate(|tau|)``, and ``M`` is found by root finding so
+    that ``int_{R_i}^{R_o} domega/dr dr = W_o - W_i``;
+    ``omega(r) = W_o - int_r^{R_o} domega/dr``. This is the Krieger-Maron construction
+    of Couette rheometry (recalled from memory).
+
+    A yield-stress fluid (``regularised=False``) is sheared only where
+    ``|M| / (2 pi r^2) > tau_y``, i.e. inside ``r_y = sqrt(|M| / (2 pi tau_y))``; beyond
+    ``r_y`` it turns rigidly with the outer cylinder, and that region is reported as a
+    plug. If the cylinders turn together the torque is zero (the limit of any
+    regularisation). Valid below the onset of secondary flow.
+
+    >>> class Linear:
+    ...     name = "newtonian"
+    ...     def stress(self, rate):
+    ...         return np.asarray(rate, dtype=float)
+    >>> print(f"{coaxial_flow(Linear(), 1.0, 2.0, 3.0).torque_per_length / np.pi:.8f}")
+    16.00000000
+    """
+    Ri, Ro = _radii(inner_radius, outer_radius)
+    W_i = _finite("inner_angular_speed", inner_angular_speed)
+    W_o = _finite("outer_angular_speed", outer_angular_speed)
+    speed_difference = W_i - W_o
+    tau_y = _exact_yield_stress(model, regularised)
+
+    def stress_field_for(torque):
+        return lambda r: -torque / (2 * np.pi * _as_array(r) ** 2)
+
+    def breakpoints_for(torque):
+        yield_level = _yield_stress(model)
+        if yield_level > 0 and torque != 0:
+            return _breakpoints(Ri, Ro, [np.sqrt(abs(torque) / (2 * np.pi * yield_level))])
+        return _breakpoints(Ri, Ro, [])
+
+    def angular_gradient_for(torque):
+        field = stress_field_for(torque)
+        return lambda r: _signed_rate(model, field(r), regularised) / r
+
+    def residual(torque):
+        return -_integral(angular_gradient_for(torque), breakpoints_for(torque)) - speed_difference
+
+    if speed_difference == 0:
+        torque = 0.0
+    else:
+        rate_needed = abs(speed_difference) / np.log(Ro / Ri)
+        scale = 2 * np.pi * Ro**2 * (_stress_at_rate(model, rate_needed) + tau_y)
+        torque = _increasing_root(residual, scale)
+    stress_field = stress_field_for(torque)
+    breakpoints = breakpoints_for(torque)
+    angular_gradient = angular_gradient_for(torque)
+
+    def angular_speed(r):
+        return W_o - _cumulative_integral(angular_gradient, breakpoints, r, from_upper=True)
+
+    def shear_stress(r):
+        return stress_field(_as_array(r))
+
+    plugs = _plug_intervals(stress_field, breakpoints, tau_y)
+    return RotationalReference(angular_speed, shear_stress, float(torque), plugs)

@@ -1,0 +1,239 @@
+"""Derived quantities of a solved flow: flow rate, wall stresses, torque, plugs, Re.
+
+Wall shear stresses and the torque come from the discrete reaction at the wall dofs (the
+residual of the momentum balance with the walls left free), which is the consistent,
+superconvergent flux of the finite element solution, and not from a differentiated field.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from skfem import LinearForm, asm
+
+from .solver import Solution, invert_flow_curve
+
+#: Laminar limit on the Reynolds number of pipe-like passages (common practice; the
+#: transition begins between 2000 and 2300 for Newtonian pipe flow)
+LAMINAR_REYNOLDS = 2100.0
+#: Critical Taylor number of the narrow-gap Taylor-Couette flow with the inner cylinder
+#: turning (Taylor 1923; 1708 is the classical narrow-gap value, common practice as a limit)
+CRITICAL_TAYLOR = 1708.0
+
+ASSUMPTIONS = ("laminar, isothermal, steady, fully developed flow of an incompressible "
+               "generalized Newtonian fluid; no slip at the walls unless a wall speed is given; "
+               "the viscosity model is only as good as its fit to the user's measurements")
+CAUTION = ("gnflow results support, and do not replace, engineering judgement: check every "
+           "design against the applicable codes and have it reviewed by a qualified engineer")
+
+
+@LinearForm
+def _unyielded_area(v, w):
+    return w.indicator * w.area_weight * v
+
+
+def fields(solution: Solution) -> dict[str, np.ndarray]:
+    """Point fields at the dofs: velocity (axial) or angular speed, shear rate,
+    apparent viscosity, shear stress magnitude; plus the coordinate ``x``."""
+    basis = solution.domain.basis
+    problem = solution.problem()
+    x = basis.doflocs
+    gradient = np.array([basis.project(g) for g in basis.interpolate(solution.u).grad])
+    rate = np.sqrt(np.sum(gradient ** 2, axis=0)) * solution.domain.rate_factor(x)
+    rate = np.maximum(rate, problem.rate_floor)
+    viscosity = solution.model.viscosity(np.maximum(rate, 1e-300))
+    out = {"x": x, "shear_rate": rate, "viscosity": viscosity, "shear_stress": viscosity * rate}
+    if solution.domain.kind == "axial":
+        out["velocity"] = solution.u
+    else:
+        out["angular_speed"] = solution.u
+        out["velocity"] = solution.u * x[0]  # azimuthal speed r * omega
+    return out
+
+
+def wall_stresses(solution: Solution) -> dict[str, float]:
+    """Shear stress the fluid exerts on each wall (Pa), in +z for axial flows, and the
+    wall-tangential stress magnitude for rotational flow."""
+    problem = solution.problem()
+    reaction = problem.residual(solution.u, solution.pressure_gradient)
+    out = {}
+    for name, wall in solution.domain.walls.items():
+        force = float(np.sum(reaction[wall.dofs]))  # per unit length, on the fluid
+        # the reaction is a s^2 (eta du/dn) at the wall: divide by the wall's weight
+        out[name] = -force / wall.perimeter
+        if solution.domain.kind == "rotational":
+            out[name] = abs(force) / (wall.perimeter * wall.position)
+    return out
+
+
+def torque_per_length(solution: Solution) -> tuple[float, float]:
+    """Torque per length on the inner cylinder (N m/m) and the relative imbalance
+    against the outer cylinder's, which must vanish in steady flow."""
+    problem = solution.problem()
+    reaction = problem.internal_force(solution.u)
+    inner = float(np.sum(reaction[solution.domain.walls["inner"].dofs]))
+    outer = float(np.sum(reaction[solution.domain.walls["outer"].dofs]))
+    return inner, abs(inner + outer) / max(abs(inner), 1e-300)
+
+
+def unyielded_fraction(solution: Solution) -> float:
+    """Area fraction of the section where the stress is below the yield stress."""
+    model = solution.model
+    problem = solution.problem()
+    rate = np.maximum(problem.shear_rate(solution.u), problem.rate_floor)
+    indicator = (model.stress(rate) < model.yield_stress).astype(float)
+    area = asm(_unyielded_area, solution.domain.basis, indicator=indicator,
+               area_weight=problem.area_weight).sum()
+    total = problem.load.sum()
+    return float(area / total)
+
+
+def plug_intervals(x: np.ndarray, stress: np.ndarray, yield_stress: float) -> list[list[float]]:
+    """Intervals of a 1-D profile where the stress is below the yield stress."""
+    order = np.argsort(x)
+    x, below = x[order], stress[order] < yield_stress
+    intervals, start = [], None
+    for xi, b in zip(x, below):
+        if b and start is None:
+            start = xi
+        if not b and start is not None:
+            intervals.append([float(start), float(xi)])
+            start = None
+    if start is not None:
+        intervals.append([float(start), float(x[-1])])
+    return intervals
+
+
+def reynolds_number(solution: Solution, mean_velocity: float, wall_rate: float,
+                    hydraulic_diameter: float) -> tuple[float, str]:
+    """Reynolds number of an axial flow and the definition used.
+
+    * Newtonian: ``Re = rho V D_h / mu``;
+    * power law: Metzner & Reed (1955), AIChE J. 1, 434,
+      ``Re_MR = rho V^(2-n) D^n / (K 8^(n-1) ((3n+1)/(4n))^n)`` with ``D = D_h``;
+    * other models: ``rho V D_h / eta(gamma_w)``, the apparent viscosity at the mean
+      wall shear rate.
+    """
+    rho, V, D = solution.case.fluid.density, abs(mean_velocity), hydraulic_diameter
+    model = solution.model
+    if model.name == "newtonian":
+        return rho * V * D / model.viscosity_value, "rho V D_h / mu"
+    if model.name == "power-law":
+        n, K = model.flow_index, model.consistency
+        return (rho * V ** (2 - n) * D ** n / (K * 8 ** (n - 1) * ((3 * n + 1) / (4 * n)) ** n),
+                "Metzner-Reed: rho V^(2-n) D_h^n / (K 8^(n-1) ((3n+1)/(4n))^n)")
+    eta = float(model.viscosity(np.array([max(wall_rate, 1e-300)]))[0])
+    return rho * V * D / eta, "rho V D_h / eta(mean wall shear rate)"
+
+
+def summarise(solution: Solution) -> dict:
+    """The summary dict (SI units) written to ``summary.json``."""
+    case, domain = solution.case, solution.domain
+    warnings = list(solution.warnings)
+    out = {
+        "title": case.title,
+        "shape": domain.shape,
+        "model": solution.model.name,
+        "converged": solution.converged,
+        "iterations": solution.iterations,
+        "residual": solution.residual,
+        "message": solution.message,
+        "dofs": int(domain.dofs),
+        "cells": int(domain.cells),
+        "degree": domain.degree,
+        "solve_seconds": solution.seconds,
+    }
+    stresses = wall_stresses(solution)
+    perimeters = {n: w.perimeter for n, w in domain.walls.items()}
+    total_perimeter = sum(perimeters.values())
+    rates = {n: invert_flow_curve(solution.model, abs(t)) if t else 0.0
+             for n, t in stresses.items()}
+    mean_stress = sum(abs(stresses[n]) * perimeters[n] for n in stresses) / total_perimeter
+    mean_rate = sum(rates[n] * perimeters[n] for n in rates) / total_perimeter
+    out["wall_shear_stress"] = {"mean": mean_stress,
+                                "max": max(abs(t) for t in stresses.values()),
+                                "per_wall": stresses}
+    out["wall_shear_rate"] = {"mean": mean_rate, "max": max(rates.values()), "per_wall": rates}
+    problem = solution.problem()
+    if domain.kind == "axial":
+        flow_rate = problem.flow_rate(solution.u)
+        mean_velocity = flow_rate / domain.area
+        out.update({
+            "pressure_gradient": solution.pressure_gradient,
+            "pressure_drop_per_length": -solution.pressure_gradient,
+            "flow_rate": flow_rate,
+            "mean_velocity": mean_velocity,
+            "max_velocity": float(np.max(solution.u)),
+            "min_velocity": float(np.min(solution.u)),
+            "hydraulic_diameter": domain.hydraulic_diameter,
+            "cross_section_area": domain.area,
+            # pressure work per unit length; walls moving against the flow add their own
+            "pumping_power_per_length": -solution.pressure_gradient * flow_rate,
+        })
+        # steady axial momentum: the pressure force on the section balances the wall drag
+        drag = sum(stresses[n] * perimeters[n] for n in stresses)
+        out["force_balance_error"] = abs(drag + solution.pressure_gradient * domain.area) / max(
+            abs(drag), abs(solution.pressure_gradient * domain.area), 1e-300)
+        if case.fluid.density is not None and mean_velocity != 0:
+            re, definition = reynolds_number(solution, mean_velocity, mean_rate,
+                                             domain.hydraulic_diameter)
+            out["reynolds_number"] = re
+            out["reynolds_definition"] = definition
+            out["fanning_friction_factor"] = mean_stress / (
+                0.5 * case.fluid.density * mean_velocity ** 2)
+            if re > LAMINAR_REYNOLDS:
+                warnings.append(
+                    f"Reynolds number {re:.4g} exceeds the laminar limit {LAMINAR_REYNOLDS:.0f} "
+                    "(common practice for pipes): the flow is likely transitional or turbulent "
+                    "and these laminar results do not hold")
+    else:
+        torque, imbalance = torque_per_length(solution)
+        out["torque_per_length"] = torque
+        out["torque_imbalance"] = imbalance
+        out["inner_angular_speed"] = case.drive.inner_angular_speed
+        out["outer_angular_speed"] = case.drive.outer_angular_speed
+        out["power_per_length"] = torque * (case.drive.inner_angular_speed
+                                            - case.drive.outer_angular_speed)
+        g = case.geometry
+        if case.fluid.density is not None and case.drive.inner_angular_speed != 0:
+            gap = g.outer_radius - g.inner_radius
+            eta = float(solution.model.viscosity(np.array([max(rates["inner"], 1e-300)]))[0])
+            nu = eta / case.fluid.density
+            taylor = (case.drive.inner_angular_speed * g.inner_radius * gap / nu) ** 2 * (
+                gap / g.inner_radius)
+            out["taylor_number"] = taylor
+            if taylor > CRITICAL_TAYLOR:
+                warnings.append(
+                    f"Taylor number {taylor:.4g} exceeds {CRITICAL_TAYLOR:.0f} (narrow-gap "
+                    "critical value, common practice): Taylor vortices are likely and the "
+                    "purely azimuthal flow computed here does not hold")
+    if solution.model.is_yield_stress:
+        out["unyielded_fraction"] = unyielded_fraction(solution)
+        out["yield_stress"] = solution.model.yield_stress
+        if out["wall_shear_stress"]["max"] <= solution.model.yield_stress:
+            warnings.append("the wall shear stress does not exceed the yield stress: the "
+                            "material does not flow; the small flow computed is creep of the "
+                            "regularised model, not a real flow")
+        if domain.dimension == 1:
+            f = fields(solution)
+            out["plugs"] = plug_intervals(f["x"][0], f["shear_stress"],
+                                          solution.model.yield_stress)
+    if solution.regularisation:
+        out["regularisation"] = solution.regularisation
+    rate_range = case.fluid.fitted_rate_range
+    if rate_range:
+        largest = out["wall_shear_rate"]["max"]
+        if largest > rate_range[1]:
+            warnings.append(f"the wall shear rate {largest:.4g} 1/s exceeds the highest rate of "
+                            f"the fluid card's data ({rate_range[1]:.4g} 1/s): the model is "
+                            "extrapolated")
+        if out["wall_shear_rate"]["mean"] < rate_range[0]:
+            warnings.append(f"the mean wall shear rate {out['wall_shear_rate']['mean']:.4g} 1/s "
+                            f"is below the lowest rate of the fluid card's data "
+                            f"({rate_range[0]:.4g} 1/s): the model is extrapolated")
+    if not solution.converged:
+        warnings.append(solution.message)
+    out["warnings"] = warnings
+    out["assumptions"] = ASSUMPTIONS
+    out["caution"] = CAUTION
+    return out
+
