@@ -189,16 +189,16 @@ def read_flow_curve(path) -> FlowCurveData:
     if not rows[1:]:
         raise CaseError(source, "no data rows", "at least one line of values under the header")
 
-    lines = [number for number, _ in rows[1:]]
     si = {}
     for name, units in columns:
         dimension = COLUMNS[name][0]
         magnitudes = np.array(values[name], dtype=float)
         si[name] = registry.Quantity(magnitudes, units).to(_SI[dimension]).magnitude
         for index in np.flatnonzero(~(si[name] > 0) | ~np.isfinite(si[name])):
+            number, cells = rows[1 + index]
             what = "an absolute temperature > 0 K" if dimension == "temperature" else "a value > 0"
-            raise CaseError(f"{source}, line {lines[index]}, column {name!r}",
-                            values[name][index], what)
+            raise CaseError(f"{source}, line {number}, column {name!r}",
+                            cells[names.index(name)].strip(), what)
 
     measured = "shear_stress" if "shear_stress" in si else "viscosity"
     rates = si["shear_rate"]
@@ -208,6 +208,9 @@ def read_flow_curve(path) -> FlowCurveData:
 
 def _read_header(source: str, line: int, header: list[str]) -> list[tuple[str, object]]:
     """The header's (column name, pint units) pairs, checked."""
+    if len(header) == 1 and (";" in header[0] or "\t" in header[0]):
+        raise CaseError(f"{source}, line {line} (header)", header[0],
+                        "comma-separated columns (this header uses ';' or tabs)")
     columns = []
     for cell in header:
         key = f"{source}, line {line} (header), column {cell.strip()!r}"
@@ -337,8 +340,9 @@ def fit_models(data: FlowCurveData, models=None) -> list[ModelFit]:
 def _too_few_points(data: FlowCurveData, model: str, with_temperature: bool):
     p = parameter_count(model, with_temperature)
     shift = " with the Arrhenius shift" if with_temperature else ""
-    raise CaseError(data.source, f"{data.points} data points",
-                    f"at least {p + 1} points to fit {model} ({p} parameters{shift})")
+    raise CaseError(data.source, f"{data.points} data point" + ("s" if data.points != 1 else ""),
+                    f"at least {p + 1} points to fit {model} "
+                    f"({p} parameter{'s' if p != 1 else ''}{shift}, and one more for the error)")
 
 
 class _Space:

@@ -48,7 +48,7 @@ def profile_plot(solution: Solution, path: Path) -> None:
         ax.grid(True, alpha=0.3)
     if solution.model.is_yield_stress:
         _shade_plugs(axes, x, rows[:, -1], solution.model.yield_stress)
-    fig.suptitle(f"{solution.case.title}: {solution.model.name} in a {solution.domain.shape}",
+    fig.suptitle(f"{solution.case.title} ({solution.model.name} fluid, {solution.domain.shape})",
                  fontsize=10)
     fig.tight_layout()
     fig.savefig(path, dpi=110)
