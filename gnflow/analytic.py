@@ -482,44 +482,68 @@ def _invert_flow_curve(model, stress):
 
     # bracket each root in ln(rate): stress(e^lower) < target <= stress(e^upper),
     # starting from 1/s and widening outwards
-    rising = _log_stress_gap(model, np.zeros(todo.size), log_target) < 0
+    gap_at_one = _log_stress_gap(model, np.zeros(todo.size), log_target)
+    rising = gap_at_one < 0
     lower = np.where(rising, 0.0, -_BRACKET_STEP)
     upper = np.where(rising, _BRACKET_STEP, 0.0)
+    gap_lower = np.where(rising, gap_at_one, np.nan)
+    gap_upper = np.where(rising, np.nan, gap_at_one)
     pending = np.flatnonzero(rising)
     while pending.size:
-        pending = pending[_log_stress_gap(model, upper[pending], log_target[pending]) < 0]
+        gap = _log_stress_gap(model, upper[pending], log_target[pending])
+        gap_upper[pending] = gap
+        short = gap < 0
+        pending, gap = pending[short], gap[short]
         if np.any(upper[pending] > -_LOG_RATE_FLOOR):
             raise ValueError(f"{getattr(model, 'name', 'model')}: a shear stress of "
                              f"{flat_stress[todo[pending[0]]]:g} Pa lies beyond its flow curve")
-        lower[pending] = upper[pending]
+        lower[pending], gap_lower[pending] = upper[pending], gap
         upper[pending] += _BRACKET_STEP
     pending = np.flatnonzero(~rising)
     while pending.size:
-        still_high = _log_stress_gap(model, lower[pending], log_target[pending]) >= 0
-        pending = pending[still_high & (lower[pending] >= _LOG_RATE_FLOOR)]
-        upper[pending] = lower[pending]
+        gap = _log_stress_gap(model, lower[pending], log_target[pending])
+        gap_lower[pending] = gap
+        high = (gap >= 0) & (lower[pending] >= _LOG_RATE_FLOOR)
+        pending, gap = pending[high], gap[high]
+        upper[pending], gap_upper[pending] = lower[pending], gap
         lower[pending] -= _BRACKET_STEP
     # a root below e^-700 is a zero rate in double precision
-    log_rate = np.where(lower < _LOG_RATE_FLOOR, -np.inf, 0.5 * (lower + upper))
+    underflow = lower < _LOG_RATE_FLOOR
+    log_rate = np.where(underflow, -np.inf, 0.5 * (lower + upper))
 
-    active = np.flatnonzero(np.isfinite(log_rate))
+    # Newton steps where they stay inside the bracket; elsewhere (flat stretches of
+    # regularised yield-stress curves, kinks of bi-viscous ones) false position with the
+    # Illinois halving, which converges superlinearly on any monotone bracket.
+    kept_side = np.zeros(todo.size)
+    active = np.flatnonzero(~underflow)
     for _ in range(300):
         if active.size == 0:
             break
         u, lo, hi = log_rate[active], lower[active], upper[active]
+        gap_lo, gap_hi, last = gap_lower[active], gap_upper[active], kept_side[active]
         rate_now = np.exp(u)
         with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
             stress_now = _as_array(model.stress(rate_now))
             gap = np.log(stress_now) - log_target[active]
             step = -gap / _log_slope(model, rate_now, stress_now)
         below = gap < 0
-        lo, hi = np.where(below, u, lo), np.where(below, hi, u)
+        side = np.where(below, -1.0, 1.0)     # which end the new point replaces
+        lo, gap_lo = np.where(below, u, lo), np.where(below, gap, gap_lo)
+        hi, gap_hi = np.where(below, hi, u), np.where(below, gap_hi, gap)
+        repeated = side == last
+        gap_hi = np.where(repeated & below, 0.5 * gap_hi, gap_hi)
+        gap_lo = np.where(repeated & ~below, 0.5 * gap_lo, gap_lo)
         candidate = u + step
         outside = ~np.isfinite(candidate) | (candidate <= lo) | (candidate >= hi)
-        candidate = np.where(gap == 0, u, np.where(outside, 0.5 * (lo + hi), candidate))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            false_position = lo - gap_lo * (hi - lo) / (gap_hi - gap_lo)
+        false_position = np.where(np.isfinite(false_position) & (false_position > lo)
+                                  & (false_position < hi), false_position, 0.5 * (lo + hi))
+        candidate = np.where(gap == 0, u, np.where(outside, false_position, candidate))
         resolution = _LOG_RATE_TOLERANCE * np.maximum(1.0, np.abs(u))
         done = (np.abs(candidate - u) <= resolution) | (hi - lo <= resolution)
         log_rate[active], lower[active], upper[active] = candidate, lo, hi
+        gap_lower[active], gap_upper[active], kept_side[active] = gap_lo, gap_hi, side
         active = active[~done]
     rate[todo] = np.exp(log_rate)
     return rate.reshape(stress.shape)
@@ -569,6 +593,7 @@ def _stress_at_rate(model, rate: float) -> float:
 _GAUSS_NODES, _GAUSS_WEIGHTS = np.polynomial.legendre.leggauss(10)
 _QUADRATURE_TOLERANCE = 1e-13   # relative to the integral of |integrand|
 _MAX_BISECTIONS = 60            # pieces shorter than 2^-60 of the span add nothing visible
+_MAX_PIECES = 2_000_000
 
 
 def _gauss_legendre(integrand, lower, upper):
@@ -582,9 +607,11 @@ def _integrate_pieces(integrand, lower, upper):
     """Integrals of ``integrand`` over each ``[lower_k, upper_k]``, all pieces at once.
 
     Adaptive bisection: a piece is accepted when its 10-point Gauss-Legendre value and
-    the sum over its two halves agree to a share of the tolerance proportional to its
-    length; otherwise both halves go on. The refined sum is kept. Endpoint kinks of the
-    rate (zero stress, yield points) are expected at piece ends, where bisection
+    the sum over its two halves agree, either to a share of the absolute tolerance
+    proportional to its length or to the relative tolerance of the piece itself (the
+    second keeps roundoff from stalling pieces where the integrand is far above its
+    mean); otherwise both halves go on, and the refined sum is what is kept. Kinks of
+    the rate (zero stress, yield points) are expected at piece ends, where bisection
     resolves them geometrically.
     """
     lower = _as_array(lower).copy()
@@ -599,8 +626,12 @@ def _integrate_pieces(integrand, lower, upper):
         left = _gauss_legendre(integrand, lower, middle)
         right = _gauss_legendre(integrand, middle, upper)
         refined = left + right
-        accepted = ((np.abs(refined - whole) <= error_per_length * (upper - lower))
-                    | (middle <= lower) | (middle >= upper) | (depth == _MAX_BISECTIONS - 1))
+        allowed = np.maximum(error_per_length * (upper - lower),
+                             _QUADRATURE_TOLERANCE * np.abs(refined))
+        # the last two tests stop pieces that can no longer be split, and guard memory
+        # should a pathological integrand keep every piece going
+        accepted = ((np.abs(refined - whole) <= allowed) | (middle <= lower) | (middle >= upper)
+                    | (depth == _MAX_BISECTIONS - 1) | (lower.size > _MAX_PIECES))
         np.add.at(total, owner[accepted], refined[accepted])
         going_on = ~accepted
         if not going_on.any():

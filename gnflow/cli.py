@@ -36,6 +36,11 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--out", help="results folder (default results/demo/)")
     demo.add_argument("--list", action="store_true", help="list the bundled examples")
     demo.add_argument("--example", help="name of a bundled example (default: %s)" % DEMO_CASE)
+    verify = sub.add_parser("verify", help="mesh-convergence study of a case")
+    verify.add_argument("case")
+    verify.add_argument("--levels", type=int, default=4, help="number of meshes (default 4)")
+    verify.add_argument("--ratio", type=float, default=2.0, help="refinement ratio (default 2)")
+    verify.add_argument("--out", help="results folder (default results/<case stem>-verify/)")
     fit = sub.add_parser("fit", help="fit viscosity models to flow-curve data (CSV)")
     fit.add_argument("data", help="CSV with unit-labelled columns, e.g. 'shear_rate [1/s]'")
     fit.add_argument("--models", nargs="+", help="models to fit (default: all)")
@@ -157,6 +162,9 @@ def main(argv: list[str] | None = None) -> int:
             return _check(args.case)
         if args.command == "demo":
             return _demo(args)
+        if args.command == "verify":
+            from .verify import run_verify_command
+            return run_verify_command(args.case, args.levels, args.ratio, args.out)
         if args.command == "fit":
             from .fit import run_fit_command
             return run_fit_command(args.data, args.models, args.out)

@@ -278,7 +278,7 @@ class ModelFit:
     points: int
     at_bound: tuple = ()
     temperature_law: Arrhenius | None = None
-    residuals: np.ndarray = field(default=None, repr=False)
+    residuals: np.ndarray = field(default=None, repr=False)  # data / fit - 1, per point
 
     @property
     def model_parameters(self) -> dict:
@@ -286,7 +286,10 @@ class ModelFit:
         return {k: self.parameters[k] for k in MODEL_PARAMETERS[self.model]}
 
     def fluid(self) -> Model:
-        """The fitted :mod:`gnflow.rheology` model (at the reference temperature)."""
+        """The fitted :mod:`gnflow.rheology` model at the reference temperature.
+
+        Yield-stress models get that module's default regularisation, as a case would.
+        """
         return MODELS[self.model](**self.model_parameters)
 
     def stress(self, rate, temperature=None) -> np.ndarray:
@@ -302,7 +305,8 @@ def _flow_curve(model: str, parameters: dict, rate: np.ndarray) -> np.ndarray:
     if model == "bingham":
         return parameters["yield_stress"] + parameters["plastic_viscosity"] * rate
     if model == "herschel-bulkley":
-        return parameters["yield_stress"] + parameters["consistency"] * rate ** parameters["flow_index"]
+        return (parameters["yield_stress"]
+                + parameters["consistency"] * rate ** parameters["flow_index"])
     return MODELS[model](**parameters).stress(rate)
 
 
@@ -412,17 +416,27 @@ class _Space:
         margin = 1e-6 * (self.upper - self.lower)
         return np.clip(np.array(x, dtype=float), self.lower + margin, self.upper - margin)
 
-    def intervals(self, x, covariance, identified, t_quantile) -> dict:
-        """95 % intervals of the SI parameters, mapped from the fitting coordinates."""
+    def intervals(self, x, covariance, undetermined, t_quantile) -> dict:
+        """95 % intervals of the SI parameters, mapped from the fitting coordinates.
+
+        ``undetermined`` holds (as rows) the directions of the fitting space that the data
+        leave free; a parameter that changes along one of them gets None.
+        """
+        x = [float(value) for value in x]
         si = self.to_si(x)
-        sigma = np.sqrt(np.maximum(np.diag(covariance), 0.0))
         out = {}
         for i, name in enumerate(self.names):
-            if not identified[i]:
+            # d parameter / d x, up to a factor the interval below accounts for
+            gradient = np.zeros(len(x))
+            gradient[i] = 1.0
+            if name == "infinite_shear_viscosity":  # fraction * exp(x_j)
+                j = self.names.index("zero_shear_viscosity")
+                gradient[i], gradient[j] = si["zero_shear_viscosity"], si[name]
+            if np.sum((undetermined @ gradient) ** 2) > 1e-6 * (gradient @ gradient):
                 out[name] = None
                 continue
-            half = t_quantile * sigma[i]
-            if name in _LOG_FITTED:
+            half = t_quantile * math.sqrt(max(float(gradient @ covariance @ gradient), 0.0))
+            if name in _LOG_FITTED:  # multiplicative
                 out[name] = (math.exp(x[i] - half), math.exp(x[i] + half))
             elif name == "yield_stress":
                 out[name] = (max(0.0, (x[i] - half) * self.stress_scale),
@@ -430,15 +444,7 @@ class _Space:
             elif name == "activation_energy":
                 out[name] = ((x[i] - half) * _ACTIVATION_ENERGY_SCALE,
                              (x[i] + half) * _ACTIVATION_ENERGY_SCALE)
-            elif name == "infinite_shear_viscosity":
-                j = self.names.index("zero_shear_viscosity")
-                if not identified[j]:
-                    out[name] = None
-                    continue
-                # delta method for eta_inf = fraction * exp(x_j)
-                gradient = np.array([si["zero_shear_viscosity"], si[name]])
-                sub = covariance[np.ix_([i, j], [i, j])]
-                half = t_quantile * math.sqrt(max(gradient @ sub @ gradient, 0.0))
+            elif name == "infinite_shear_viscosity":  # delta method
                 out[name] = (max(0.0, si[name] - half), si[name] + half)
             else:
                 out[name] = (x[i] - half, x[i] + half)
@@ -452,17 +458,17 @@ def _fit_model(data: FlowCurveData, model: str) -> ModelFit:
     log_stress = np.log(data.stresses)
     inverse_temperature = (1.0 / data.temperatures - 1.0 / reference) if with_temperature else None
 
-    def reduced_rates(x):
+    def reduced_rates(activation_energy):
+        """Rates shifted onto the reference temperature: ``a_T * rate``."""
         if not with_temperature:
             return data.rates
-        energy = x[-1] * _ACTIVATION_ENERGY_SCALE
-        return data.rates * np.exp(energy / GAS_CONSTANT * inverse_temperature)
+        return data.rates * np.exp(activation_energy / GAS_CONSTANT * inverse_temperature)
 
     def residuals(x):
         with np.errstate(all="ignore"):
             parameters = space.to_si(x)
             stress = _flow_curve(model, {k: parameters[k] for k in MODEL_PARAMETERS[model]},
-                                 reduced_rates(x))
+                                 reduced_rates(parameters.get("activation_energy")))
             r = np.log(stress) - log_stress
         # outside the model's domain (never inside the bounds, but finite differences
         # may step there): a large residual steers the solver back
@@ -470,10 +476,7 @@ def _fit_model(data: FlowCurveData, model: str) -> ModelFit:
 
     energy_start = _activation_energy_start(data) if with_temperature else None
     starts = []
-    shifted_rates = data.rates
-    if with_temperature:
-        shifted_rates = data.rates * np.exp(energy_start / GAS_CONSTANT * inverse_temperature)
-    for start in _starting_values(model, shifted_rates, data.stresses):
+    for start in _starting_values(model, reduced_rates(energy_start), data.stresses):
         if with_temperature:
             start["activation_energy"] = energy_start
         starts.append(space.to_internal(start))
@@ -491,22 +494,26 @@ def _fit_model(data: FlowCurveData, model: str) -> ModelFit:
     dof = n_points - n_parameters
     ssr = float(r @ r)
     jacobian = _central_jacobian(residuals, x, space.lower, space.upper)
-    covariance, identified = _covariance(jacobian, ssr / dof)
+    covariance, undetermined = _covariance(jacobian, ssr / dof)
     t_quantile = float(stats.t.ppf(0.5 + _CONFIDENCE / 2, dof))
     parameters = space.to_si(x)
-    ci95 = space.intervals(x, covariance, identified, t_quantile)
+    ci95 = space.intervals(x, covariance, undetermined, t_quantile)
 
-    at_bound = tuple(name for name, active in zip(space.names, best.active_mask) if active)
+    # the solver's own active set is approximate; ask the bounds directly
+    gap = np.minimum(x - space.lower, space.upper - x)
+    at_bound = tuple(n for n, g, w in zip(space.names, gap, space.upper - space.lower)
+                     if g <= 1e-5 * w)
     total = float(np.sum((log_stress - log_stress.mean()) ** 2))
     r2 = 1.0 - ssr / total if total > 0 else None
     # a floor for noise-free data: the round-off of ln(tau), so AIC stays finite
     aic = n_points * math.log(max(ssr, n_points * 1e-30) / n_points) + 2 * (n_parameters + 1)
-    relative = np.expm1(-r)  # tau_model / tau_data - 1 = exp(r) - 1; sign as data - model
     law = Arrhenius(parameters["activation_energy"], reference) if with_temperature else None
+    # r = ln(tau_model / tau_data): the model's relative error is exp(r) - 1, the data's
+    # deviation from the model (the residual plot) exp(-r) - 1
     return ModelFit(model=model, parameters=parameters, ci95=ci95, r2=r2,
                     rms_relative_error=float(np.sqrt(np.mean(np.expm1(r) ** 2))), aic=aic,
                     points=n_points, at_bound=at_bound, temperature_law=law,
-                    residuals=relative)
+                    residuals=np.expm1(-r))
 
 
 def _central_jacobian(function, x, lower, upper):
@@ -526,14 +533,15 @@ def _central_jacobian(function, x, lower, upper):
 
 
 def _covariance(jacobian, variance):
-    """``variance * (J^T J)^-1`` on the directions the data determine, and which those are."""
+    """``variance * (J^T J)^-1`` on the directions the data determine, and the others.
+
+    Returns the covariance (a pseudo-inverse: zero along undetermined directions) and
+    those undetermined directions as the rows of a matrix.
+    """
     _, singular, vt = np.linalg.svd(jacobian, full_matrices=False)
     kept = singular > _SINGULAR * singular[0] if singular[0] > 0 else np.zeros_like(singular, bool)
     v = vt[kept].T
-    covariance = variance * (v / singular[kept] ** 2) @ v.T
-    undetermined = vt[~kept]
-    identified = np.sum(undetermined ** 2, axis=0) < 1e-6
-    return covariance, identified
+    return variance * (v / singular[kept] ** 2) @ v.T, vt[~kept]
 
 
 def _activation_energy_start(data: FlowCurveData) -> float:
@@ -686,11 +694,17 @@ def fluid_card(fit: ModelFit, data: FlowCurveData, ranked: int = 1) -> str:
                      "the Arrhenius shift holds only near that range")
     elif len(levels) == 1:
         lines.append(f"# measured at {_celsius(levels[0])}")
+    undetermined = [name for name, interval in fit.ci95.items() if interval is None]
+    if undetermined:
+        lines.append(f"# not determined by the data: {', '.join(undetermined)}")
+    if fit.at_bound:
+        lines.append(f"# at the edge of the fitting range: {', '.join(fit.at_bound)}")
     lines += ["[fluid]", f'model = "{fit.model}"']
     for name in MODEL_PARAMETERS[fit.model]:
         value = fit.parameters[name]
         unit = parameter_unit(name, fit.parameters)
-        lines.append(f'{name} = "{_number(value)} {unit}"' if unit else f"{name} = {_number(value)}")
+        shown = f'"{_number(value)} {unit}"' if unit else _number(value)
+        lines.append(f"{name} = {shown}")
     low, high = data.rate_range
     lines.append(f'fitted_rate_range = ["{_number(low)} 1/s", "{_number(high)} 1/s"]')
     if fit.temperature_law is not None:
@@ -713,7 +727,8 @@ def write_fit_outputs(fits: list[ModelFit], data: FlowCurveData, out_dir) -> Pat
         out.mkdir(parents=True, exist_ok=True)
         staging = Path(tempfile.mkdtemp(prefix=f".{out.resolve().name}-", dir=out.resolve().parent))
     except OSError as error:
-        raise CaseError("--out", str(out_dir), f"a directory that can be written ({error.strerror})") from None
+        raise CaseError("--out", str(out_dir),
+                        f"a directory that can be written ({error.strerror})") from None
     try:
         (staging / "fit.json").write_text(
             json.dumps(fit_report(fits, data), indent=2, allow_nan=False) + "\n")
@@ -836,5 +851,6 @@ def run_fit_command(data_path: str, models: list[str] | None, out_dir: str | Non
     for model in left_out:
         print(f"  left out {model}: {parameter_count(model, with_temperature)} parameters "
               f"need at least {parameter_count(model, with_temperature) + 1} points")
-    print(f"\nwrote {out / 'fit.json'}, {out / 'fluid.toml'} ({fits[0].model}) and {out / 'fit.png'}")
+    print(f"\nwrote {out / 'fit.json'}, {out / 'fluid.toml'} ({fits[0].model}) "
+          f"and {out / 'fit.png'}")
     return 0

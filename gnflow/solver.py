@@ -154,14 +154,13 @@ class _Problem:
     def _coefficients(self, u, tangent: bool):
         gradient = self.domain.basis.interpolate(u).grad
         s2 = self.rate_factor ** 2
-        rate = np.maximum(self.rate_factor * np.sqrt(np.sum(gradient ** 2, axis=0)),
-                          self.rate_floor)
+        # a smooth floor, sqrt(g^2 + floor^2), keeps the tangent continuous (see RATE_FLOOR)
+        rate = np.sqrt(s2 * np.sum(gradient ** 2, axis=0) + self.rate_floor ** 2)
         eta = self.model.viscosity(rate)
         coefficient = self.area_weight * s2 * eta
         extra = {}
         if tangent:
-            above = rate > self.rate_floor
-            derivative = np.where(above, self.model.viscosity_derivative(rate), 0.0)
+            derivative = self.model.viscosity_derivative(rate)
             extra["tangent_coefficient"] = self.area_weight * s2 * s2 * derivative / rate
         return gradient, coefficient, extra
 

@@ -117,7 +117,8 @@ def test_undetermined_parameters_get_no_interval():
     rates = np.logspace(0, 3, 20)
     data = FlowCurveData("power", rates, 2.5 * rates ** 0.45, None, "shear_stress")
     fit, = fit_models(data, ["carreau"])
-    assert fit.ci95["zero_shear_viscosity"] is None or "zero_shear_viscosity" in fit.at_bound
+    assert fit.ci95["zero_shear_viscosity"] is None and fit.ci95["time_constant"] is None
+    assert "time_constant" in fit.at_bound  # the knee pushed below the measured rates
     assert fit.ci95["flow_index"] is not None
     assert fit.parameters["flow_index"] == pytest.approx(0.45, rel=1e-4)
 
@@ -133,7 +134,8 @@ def test_viscosity_column_in_other_units_gives_the_same_fit(tmp_path):
                           zip(60 * data.rates, 1e3 * data.stresses / data.rates))
     a, b = read_flow_curve(stress), read_flow_curve(viscosity)
     assert b.measured == "viscosity"
-    assert np.allclose(a.rates, b.rates, rtol=1e-8) and np.allclose(a.stresses, b.stresses, rtol=1e-8)
+    assert np.allclose(a.rates, b.rates, rtol=1e-8)
+    assert np.allclose(a.stresses, b.stresses, rtol=1e-8)
     fit_a, = fit_models(a, ["carreau"])
     fit_b, = fit_models(b, ["carreau"])
     assert fit_a.parameters == pytest.approx(fit_b.parameters, rel=1e-5)
@@ -205,12 +207,12 @@ def test_missing_file_and_undecodable_file(tmp_path):
 
 
 def test_too_few_points_for_a_requested_model(tmp_path):
-    data = synthetic("power-law", np.logspace(0, 2, 4))
+    data = synthetic("power-law", np.logspace(0, 2, 3))
     with pytest.raises(CaseError, match="at least 5 points to fit carreau"):
         fit_models(data, ["carreau"])
     # by default, models the data cannot support are left out
     assert {f.model for f in fit_models(data)} == {"newtonian", "power-law", "bingham"}
-    temperatures = np.array([280.0, 280.0, 300.0, 300.0])
+    temperatures = np.array([280.0, 290.0, 300.0])
     with pytest.raises(CaseError, match="with the Arrhenius shift"):
         fit_models(FlowCurveData("t", data.rates, data.stresses, temperatures, "shear_stress"),
                    ["herschel-bulkley"])
@@ -251,7 +253,8 @@ def test_outputs_json_card_and_plot(tmp_path):
     best = models[0]["parameters"]
     n = fluid["flow_index"]
     assert n == pytest.approx(best["flow_index"], rel=1e-3)
-    assert quantity(fluid["yield_stress"], "stress", "y") == pytest.approx(best["yield_stress"], rel=1e-3)
+    assert quantity(fluid["yield_stress"], "stress", "y") == \
+        pytest.approx(best["yield_stress"], rel=1e-3)
     assert quantity(fluid["consistency"], "consistency", "K", flow_index=n) == \
         pytest.approx(best["consistency"], rel=1e-3)
 
