@@ -84,6 +84,13 @@ def _positive(name: str, value: float) -> float:
     return value
 
 
+def _non_negative(name: str, value: float) -> float:
+    value = float(value)
+    if not (0 <= value < np.inf):
+        raise ValueError(f"{name} = {value!r}: expected a finite number >= 0")
+    return value
+
+
 def _finite(name: str, value: float) -> float:
     value = float(value)
     if not np.isfinite(value):
@@ -254,8 +261,9 @@ def slit_power_law(gap, consistency, flow_index, pressure_gradient):
     ``tau = G (y - B)``, ``q = sgn(-G) (2 n B^2 / (2n+1)) (tau_w / K)^(1/n)``.
 
     Valid where ``tau = K |rate|^(n-1) rate`` holds over the rates present (the power law
-    has no Newtonian plateau). Source: Bird, Stewart & Lightfoot, *Transport Phenomena*,
-    2nd ed., section 8.3 (power-law fluids in simple geometries).
+    has no Newtonian plateau). Derived by integrating the power law over the linear
+    stress profile, as for the tube in Bird, Stewart & Lightfoot, *Transport Phenomena*,
+    2nd ed., section 8.3 (recalled from memory).
 
     >>> ref = slit_power_law(gap=2.0, consistency=1.0, flow_index=0.5, pressure_gradient=-1.0)
     >>> print(f"{ref.flow_rate:.6g}")
@@ -376,7 +384,7 @@ def pipe_bingham(radius, yield_stress, plastic_viscosity, pressure_gradient):
     0.177083 ((0.0, 0.5),)
     """
     R = _positive("radius", radius)
-    tau_y = _positive("yield_stress", yield_stress)
+    tau_y = _non_negative("yield_stress", yield_stress)
     mu_p = _positive("plastic_viscosity", plastic_viscosity)
     G = _finite("pressure_gradient", pressure_gradient)
     direction = -np.sign(G)
@@ -390,9 +398,12 @@ def pipe_bingham(radius, yield_stress, plastic_viscosity, pressure_gradient):
     def shear_stress(r):
         return G * _as_array(r) / 2
 
-    flow_rate = direction * np.pi * R**4 * abs(G) / (8 * mu_p) * (1 - 4 * phi / 3 + phi**4 / 3)
+    # 1 - 4 phi/3 + phi^4/3 in factored form: exact zero at phi = 1, no cancellation near it
+    flow_rate = (direction * np.pi * R**4 * abs(G) / (8 * mu_p)
+                 * (1 - phi) ** 2 * (3 + 2 * phi + phi**2) / 3)
+    plugs = ((0.0, float(plug_radius)),) if tau_y > 0 else ()
     return AxialReference(velocity, shear_stress, float(flow_rate),
-                          {"wall": float(-G * R / 2)}, ((0.0, float(plug_radius)),))
+                          {"wall": float(-G * R / 2)}, plugs)
 
 
 def slit_bingham(gap, yield_stress, plastic_viscosity, pressure_gradient):
@@ -416,7 +427,7 @@ def slit_bingham(gap, yield_stress, plastic_viscosity, pressure_gradient):
     0.208333 ((0.5, 1.5),)
     """
     h = _positive("gap", gap)
-    tau_y = _positive("yield_stress", yield_stress)
+    tau_y = _non_negative("yield_stress", yield_stress)
     mu_p = _positive("plastic_viscosity", plastic_viscosity)
     G = _finite("pressure_gradient", pressure_gradient)
     B = h / 2
@@ -431,20 +442,22 @@ def slit_bingham(gap, yield_stress, plastic_viscosity, pressure_gradient):
     def shear_stress(y):
         return G * (_as_array(y) - B)
 
-    flow_rate = direction * 2 * abs(G) * B**3 / (3 * mu_p) * (1 - 1.5 * phi + 0.5 * phi**3)
+    # 1 - 3 phi/2 + phi^3/2 = (1 - phi)^2 (2 + phi) / 2, exact zero at phi = 1
+    flow_rate = direction * 2 * abs(G) * B**3 / (3 * mu_p) * (1 - phi) ** 2 * (2 + phi) / 2
     walls = {"bottom": float(-G * B), "top": float(-G * B)}
-    plug = ((float(B - plug_half_width), float(B + plug_half_width)),)
-    return AxialReference(velocity, shear_stress, float(flow_rate), walls, plug)
+    plugs = ((float(B - plug_half_width), float(B + plug_half_width)),) if tau_y > 0 else ()
+    return AxialReference(velocity, shear_stress, float(flow_rate), walls, plugs)
 
 
 # --------------------------------------------------------------------------------------
 # inverting the flow curve
 
-# Newton's method runs on ln(tau) against ln(rate): for power-law-like curves that
-# relation is nearly straight, so a step or two suffices; a bracket kept alongside
-# catches the flat stretches of regularised yield-stress curves.
+# The root finding runs on ln(tau) against ln(rate): for power-law-like curves that
+# relation is nearly straight, so a secant step or two suffices; a bracket kept
+# alongside catches the flat stretches of regularised yield-stress curves.
 _LOG_RATE_TOLERANCE = 1e-14
 _BRACKET_STEP = 8.0      # widen the log-rate bracket by e^8 (about 3000x) per try
+_TABLE_RATES = np.logspace(-12, 12, 24 * 16 + 1)   # 16 per decade, 1e-12 to 1e12 1/s
 _LOG_RATE_FLOOR = -700.0  # below exp(-700) the rate is zero in double precision
 
 
@@ -457,19 +470,29 @@ def _exact_yield_stress(model, regularised: bool) -> float:
     return 0.0 if regularised else _yield_stress(model)
 
 
-def _log_slope(model, rate, stress):
-    """d ln tau / d ln rate, from the model's tangent if it has one."""
-    derivative = getattr(model, "stress_derivative", None)
-    if derivative is not None:
-        return rate * _as_array(derivative(rate)) / stress
-    step = 1e-7
-    return (np.log(_as_array(model.stress(rate * np.exp(step)))) - np.log(stress)) / step
-
-
 def _log_stress_gap(model, log_rate, log_target):
     """ln tau(rate) - ln target; overflow to inf is fine, it only says 'too high'."""
     with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
         return np.log(_as_array(model.stress(np.exp(log_rate)))) - log_target
+
+
+def _flow_curve_table(model):
+    """(ln tau, ln rate) along the flow curve at log-spaced rates, strictly increasing.
+
+    Evaluating the curve forwards is exact and cheap; the table then brackets every
+    stress in its range between two neighbouring rates, and it is dense in stress just
+    where a regularised yield-stress curve is flat, since many rates share those stresses.
+    """
+    log_rate = np.log(_TABLE_RATES)
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+        log_stress = np.log(_as_array(model.stress(_TABLE_RATES)))
+    usable = np.isfinite(log_stress)
+    log_rate, log_stress = log_rate[usable], log_stress[usable]
+    increasing = np.concatenate([[True], np.diff(log_stress) > 0])
+    while not increasing.all():   # drop entries where the curve is flat to roundoff
+        log_rate, log_stress = log_rate[increasing], log_stress[increasing]
+        increasing = np.concatenate([[True], np.diff(log_stress) > 0])
+    return log_stress, log_rate
 
 
 def _invert_flow_curve(model, stress):
@@ -480,15 +503,23 @@ def _invert_flow_curve(model, stress):
     todo = np.flatnonzero(flat_stress > 0)
     log_target = np.log(flat_stress[todo])
 
-    # bracket each root in ln(rate): stress(e^lower) < target <= stress(e^upper),
-    # starting from 1/s and widening outwards
-    gap_at_one = _log_stress_gap(model, np.zeros(todo.size), log_target)
-    rising = gap_at_one < 0
-    lower = np.where(rising, 0.0, -_BRACKET_STEP)
-    upper = np.where(rising, _BRACKET_STEP, 0.0)
-    gap_lower = np.where(rising, gap_at_one, np.nan)
-    gap_upper = np.where(rising, np.nan, gap_at_one)
-    pending = np.flatnonzero(rising)
+    # bracket each root in ln(rate), stress(e^lower) < target <= stress(e^upper):
+    # from the table where it reaches, else by widening outwards from its ends
+    table_stress, table_rate = _flow_curve_table(model)
+    above = np.searchsorted(table_stress, log_target)
+    inside = (above > 0) & (above < table_stress.size)
+    lower = np.empty(todo.size)
+    upper = np.empty(todo.size)
+    gap_lower = np.empty(todo.size)
+    gap_upper = np.empty(todo.size)
+    k = above[inside]
+    lower[inside], upper[inside] = table_rate[k - 1], table_rate[k]
+    gap_lower[inside] = table_stress[k - 1] - log_target[inside]
+    gap_upper[inside] = table_stress[k] - log_target[inside]
+
+    pending = np.flatnonzero(above >= table_stress.size)
+    lower[pending], gap_lower[pending] = table_rate[-1], table_stress[-1] - log_target[pending]
+    upper[pending] = table_rate[-1] + _BRACKET_STEP
     while pending.size:
         gap = _log_stress_gap(model, upper[pending], log_target[pending])
         gap_upper[pending] = gap
@@ -499,7 +530,9 @@ def _invert_flow_curve(model, stress):
                              f"{flat_stress[todo[pending[0]]]:g} Pa lies beyond its flow curve")
         lower[pending], gap_lower[pending] = upper[pending], gap
         upper[pending] += _BRACKET_STEP
-    pending = np.flatnonzero(~rising)
+    pending = np.flatnonzero(above == 0)
+    upper[pending], gap_upper[pending] = table_rate[0], table_stress[0] - log_target[pending]
+    lower[pending] = table_rate[0] - _BRACKET_STEP
     while pending.size:
         gap = _log_stress_gap(model, lower[pending], log_target[pending])
         gap_lower[pending] = gap
@@ -509,39 +542,48 @@ def _invert_flow_curve(model, stress):
         lower[pending] -= _BRACKET_STEP
     # a root below e^-700 is a zero rate in double precision
     underflow = lower < _LOG_RATE_FLOOR
-    log_rate = np.where(underflow, -np.inf, 0.5 * (lower + upper))
+    # start from false position on the bracket: nearly exact on a fine table
+    with np.errstate(divide="ignore", invalid="ignore"):
+        start = lower - gap_lower * (upper - lower) / (gap_upper - gap_lower)
+    start = np.where(np.isfinite(start) & (start > lower) & (start < upper), start,
+                     0.5 * (lower + upper))
+    start = np.where(gap_upper == 0, upper, start)   # the stress of a table entry
+    log_rate = np.where(underflow, -np.inf, start)
 
-    # Newton steps where they stay inside the bracket; elsewhere (flat stretches of
-    # regularised yield-stress curves, kinks of bi-viscous ones) false position with the
-    # Illinois halving, which converges superlinearly on any monotone bracket.
+    # Secant steps through the last two iterates where they stay inside the bracket;
+    # elsewhere (flat stretches of regularised yield-stress curves, kinks of bi-viscous
+    # ones) false position on the bracket with the Illinois halving, which converges
+    # superlinearly on any monotone bracket. One flow-curve evaluation per iteration,
+    # and only model.stress is needed.
     kept_side = np.zeros(todo.size)
+    previous, gap_previous = lower.copy(), gap_lower.copy()
     active = np.flatnonzero(~underflow)
     for _ in range(300):
         if active.size == 0:
             break
         u, lo, hi = log_rate[active], lower[active], upper[active]
         gap_lo, gap_hi, last = gap_lower[active], gap_upper[active], kept_side[active]
-        rate_now = np.exp(u)
-        with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-            stress_now = _as_array(model.stress(rate_now))
-            gap = np.log(stress_now) - log_target[active]
-            step = -gap / _log_slope(model, rate_now, stress_now)
+        gap = _log_stress_gap(model, u, log_target[active])
         below = gap < 0
         side = np.where(below, -1.0, 1.0)     # which end the new point replaces
-        lo, gap_lo = np.where(below, u, lo), np.where(below, gap, gap_lo)
-        hi, gap_hi = np.where(below, hi, u), np.where(below, gap_hi, gap)
         repeated = side == last
         gap_hi = np.where(repeated & below, 0.5 * gap_hi, gap_hi)
         gap_lo = np.where(repeated & ~below, 0.5 * gap_lo, gap_lo)
-        candidate = u + step
-        outside = ~np.isfinite(candidate) | (candidate <= lo) | (candidate >= hi)
-        with np.errstate(divide="ignore", invalid="ignore"):
+        lo, gap_lo = np.where(below, u, lo), np.where(below, gap, gap_lo)
+        hi, gap_hi = np.where(below, hi, u), np.where(below, gap_hi, gap)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            secant = u - gap * (u - previous[active]) / (gap - gap_previous[active])
             false_position = lo - gap_lo * (hi - lo) / (gap_hi - gap_lo)
         false_position = np.where(np.isfinite(false_position) & (false_position > lo)
                                   & (false_position < hi), false_position, 0.5 * (lo + hi))
-        candidate = np.where(gap == 0, u, np.where(outside, false_position, candidate))
         resolution = _LOG_RATE_TOLERANCE * np.maximum(1.0, np.abs(u))
-        done = (np.abs(candidate - u) <= resolution) | (hi - lo <= resolution)
+        # a secant step below the resolution has converged, even if roundoff puts it on
+        # the bracket end that u itself has just become
+        converged = (gap == 0) | (np.abs(secant - u) <= resolution)
+        inside = np.isfinite(secant) & (secant > lo) & (secant < hi)
+        candidate = np.where(gap == 0, u, np.where(inside | converged, secant, false_position))
+        done = converged | (np.abs(candidate - u) <= resolution) | (hi - lo <= resolution)
+        previous[active], gap_previous[active] = u, gap
         log_rate[active], lower[active], upper[active] = candidate, lo, hi
         gap_lower[active], gap_upper[active], kept_side[active] = gap_lo, gap_hi, side
         active = active[~done]
@@ -555,7 +597,7 @@ def rate_from_stress(model, stress, regularised=False):
     For a yield-stress model (``yield_stress > 0``) with ``regularised=False``, the exact
     Herschel-Bulkley inverse ``rate = ((|tau| - tau_y) / K)^(1/n)`` for ``|tau| > tau_y``,
     zero otherwise (Bingham: ``n = 1``, ``K`` the plastic viscosity). Otherwise
-    ``model.stress`` itself is inverted by a bracketed Newton iteration on
+    ``model.stress`` itself is inverted by a bracketed secant iteration on
     ``ln tau(ln rate)``, to about 1e-14 relative.
 
     >>> class Linear:
@@ -590,23 +632,37 @@ def _stress_at_rate(model, rate: float) -> float:
 # --------------------------------------------------------------------------------------
 # quadrature and root finding
 
-_GAUSS_NODES, _GAUSS_WEIGHTS = np.polynomial.legendre.leggauss(10)
+def _clustered_gauss_rule(points: int):
+    """Gauss-Legendre on [0, 1] seen through ``x = t^3 (10 - 15 t + 6 t^2)``.
+
+    The map has ``dx/dt = 30 t^2 (1 - t)^2``, so nodes crowd both ends of a piece: an
+    endpoint kink ``s^a`` of the integrand becomes ``t^(3a + 2)``, smooth enough for
+    Gauss. Kinks of the shear rate (``|tau|^(1/n)`` at zero stress, ``(|tau| - tau_y)^(1/n)``
+    at a yield point) sit at piece ends by construction, so this cuts the bisection
+    depth they need severalfold.
+    """
+    nodes, weights = np.polynomial.legendre.leggauss(points)
+    t = 0.5 * (nodes + 1)
+    return (t**3 * (10 - 15 * t + 6 * t**2),
+            0.5 * weights * 30 * t**2 * (1 - t) ** 2)
+
+
+_RULE_NODES, _RULE_WEIGHTS = _clustered_gauss_rule(12)
 _QUADRATURE_TOLERANCE = 1e-13   # relative to the integral of |integrand|
 _MAX_BISECTIONS = 60            # pieces shorter than 2^-60 of the span add nothing visible
 _MAX_PIECES = 2_000_000
 
 
-def _gauss_legendre(integrand, lower, upper):
-    half = 0.5 * (upper - lower)
-    centre = 0.5 * (upper + lower)
-    x = centre[:, None] + half[:, None] * _GAUSS_NODES
-    return half * (integrand(x) @ _GAUSS_WEIGHTS)
+def _piece_integrals(integrand, lower, upper):
+    length = upper - lower
+    x = lower[:, None] + length[:, None] * _RULE_NODES
+    return length * (integrand(x) @ _RULE_WEIGHTS)
 
 
 def _integrate_pieces(integrand, lower, upper):
     """Integrals of ``integrand`` over each ``[lower_k, upper_k]``, all pieces at once.
 
-    Adaptive bisection: a piece is accepted when its 10-point Gauss-Legendre value and
+    Adaptive bisection: a piece is accepted when its value by the clustered Gauss rule and
     the sum over its two halves agree, either to a share of the absolute tolerance
     proportional to its length or to the relative tolerance of the piece itself (the
     second keeps roundoff from stalling pieces where the integrand is far above its
@@ -618,13 +674,14 @@ def _integrate_pieces(integrand, lower, upper):
     upper = _as_array(upper).copy()
     total = np.zeros(lower.size)
     owner = np.arange(lower.size)
-    whole = _gauss_legendre(integrand, lower, upper)
+    whole = _piece_integrals(integrand, lower, upper)
     span = np.sum(upper - lower)
     error_per_length = _QUADRATURE_TOLERANCE * np.sum(np.abs(whole)) / span
     for depth in range(_MAX_BISECTIONS):
         middle = 0.5 * (lower + upper)
-        left = _gauss_legendre(integrand, lower, middle)
-        right = _gauss_legendre(integrand, middle, upper)
+        halves = _piece_integrals(integrand, np.concatenate([lower, middle]),
+                                  np.concatenate([middle, upper]))
+        left, right = halves[:lower.size], halves[lower.size:]
         refined = left + right
         allowed = np.maximum(error_per_length * (upper - lower),
                              _QUADRATURE_TOLERANCE * np.abs(refined))
@@ -677,10 +734,28 @@ def _breakpoints(lower, upper, positions):
     return np.unique(np.concatenate([[lower], positions, [upper]]))
 
 
-def _stress_levels(model):
-    """Stress values where the rate has a kink: zero, and +-yield stress."""
+def _stress_levels(model, regularised):
+    """Signed stresses where the rate has a kink or a sharp bend, to split quadrature at.
+
+    Zero; +-yield stress (a true kink when exact, the sharp bend of a Papanastasiou
+    curve when regularised); and for a regularised bi-viscous curve the stress at its
+    critical rate, where the slope jumps.
+    """
     tau_y = _yield_stress(model)
-    return (0.0, tau_y, -tau_y) if tau_y > 0 else (0.0,)
+    levels = [0.0]
+    if tau_y > 0:
+        levels += [tau_y, -tau_y]
+        if regularised and getattr(model, "regularisation", None) == "bi-viscous":
+            kink = _stress_at_rate(model, model.regularisation_parameter)
+            levels += [kink, -kink]
+    return levels
+
+
+def _decade_points(lower, upper):
+    """One breakpoint per decade of radius: when the stress C/r spans many decades (a
+    thin inner rod) the quadrature then works on all scales at once, not level by level."""
+    decades = int(np.floor(np.log10(upper / lower)))
+    return list(lower * 10.0 ** np.arange(1, decades + 1)) if decades > 0 else []
 
 
 def _plug_intervals(stress_field, breakpoints, tau_y):
@@ -788,7 +863,7 @@ def slit_flow(model, gap, pressure_gradient, bottom_speed=0.0, top_speed=0.0,
         if G == 0:
             return _breakpoints(0.0, h, [])
         return _breakpoints(0.0, h, [(level - bottom_stress) / G
-                                     for level in _stress_levels(model)])
+                                     for level in _stress_levels(model, regularised)])
 
     def residual(bottom_stress):
         field = stress_field_for(bottom_stress)
@@ -813,8 +888,9 @@ def pipe_flow(model, radius, pressure_gradient, regularised=False):
     ``tau(r) = G r / 2`` (regularity on the axis), ``dw/dr = sgn(tau) rate(|tau|)``,
     ``w(r) = -int_r^R dw/dr``, ``Q = -pi int_0^R r^2 dw/dr dr``. With
     ``regularised=False`` a yield-stress fluid has its exact plug ``r <= 2 tau_y / |G|``.
-    This is the Rabinowitsch-Mooney construction (Bird, Stewart & Lightfoot,
-    *Transport Phenomena*, 2nd ed., section 8.3; recalled from memory).
+    Integrating the flow curve over the linear stress profile is the standard
+    construction for GN tube flow (e.g. Bird, Stewart & Lightfoot, *Transport
+    Phenomena*, 2nd ed., section 8.3; recalled from memory).
 
     >>> class Linear:
     ...     name = "newtonian"
@@ -829,7 +905,8 @@ def pipe_flow(model, radius, pressure_gradient, regularised=False):
     def stress_field(r):
         return G * _as_array(r) / 2
 
-    positions = [2 * level / G for level in _stress_levels(model)] if G != 0 else []
+    positions = ([2 * level / G for level in _stress_levels(model, regularised)]
+                 if G != 0 else [])
     return _axial_reference(model, regularised, stress_field, _breakpoints(0.0, R, positions),
                             0.0, 0.0, True, (None, "wall"), anchor_at_upper=True)
 
@@ -885,8 +962,9 @@ def annulus_flow(model, inner_radius, outer_radius, pressure_gradient, inner_spe
         return lambda r: G * _as_array(r) / 2 + C / _as_array(r)
 
     def breakpoints_for(C):
-        roots = [r for level in _stress_levels(model) for r in _annulus_stress_roots(G, C, level)]
-        return _breakpoints(Ri, Ro, roots)
+        roots = [r for level in _stress_levels(model, regularised)
+                 for r in _annulus_stress_roots(G, C, level)]
+        return _breakpoints(Ri, Ro, roots + _decade_points(Ri, Ro))
 
     def residual(C):
         field = stress_field_for(C)
@@ -950,10 +1028,10 @@ def coaxial_flow(model, inner_radius, outer_radius, inner_angular_speed,
         return lambda r: -torque / (2 * np.pi * _as_array(r) ** 2)
 
     def breakpoints_for(torque):
-        yield_level = _yield_stress(model)
-        if yield_level > 0 and torque != 0:
-            return _breakpoints(Ri, Ro, [np.sqrt(abs(torque) / (2 * np.pi * yield_level))])
-        return _breakpoints(Ri, Ro, [])
+        # |tau| = |M| / (2 pi r^2) reaches each (positive) kink level at one radius
+        radii = [np.sqrt(abs(torque) / (2 * np.pi * level))
+                 for level in _stress_levels(model, regularised) if level > 0]
+        return _breakpoints(Ri, Ro, radii + _decade_points(Ri, Ro))
 
     def angular_gradient_for(torque):
         field = stress_field_for(torque)

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import copy
 import difflib
+import json
 import math
 import tomllib
 from dataclasses import dataclass, field
@@ -67,12 +68,20 @@ def _suggest(key: str, allowed) -> str:
     return f' (did you mean "{close[0]}"?)' if close else ""
 
 
+def _shown(key: str) -> str:
+    """A key as printed in a message: quoted and escaped unless it is plain text."""
+    if key and key.isprintable() and key.strip() == key:
+        return key
+    return json.dumps(key)
+
+
 def _check_keys(table: dict, allowed, where: str) -> None:
     for key in table:
         if key not in allowed:
             choices = ", ".join(sorted(allowed))
             raise CaseError(f"{where}.{key}" if where else key, message=(
-                f"unknown key {(where + '.') if where else ''}{key}{_suggest(key, allowed)}; "
+                f"unknown key {(where + '.') if where else ''}{_shown(key)}"
+                f"{_suggest(key, allowed)}; "
                 f"{'[' + where + ']' if where else 'the top level'} takes: {choices}"))
 
 
@@ -134,9 +143,10 @@ def _dimensional(table: dict, key: str, where: str, dimension: str, default=...,
                  flow_index: float | None = None) -> float:
     if key not in table:
         if default is ...:
+            unit = si_unit(dimension, flow_index)
             raise CaseError(f"{where}.{key}", message=(
-                f"missing key {where}.{key} ({dimension.replace('_', ' ')}, "
-                f"in {si_unit(dimension, flow_index) or 'no unit'})"))
+                f"missing key {where}.{key} ({dimension.replace('_', ' ')}, in {unit})" if unit
+                else f"missing key {where}.{key} (a plain number)"))
         return default
     if dimension == "dimensionless":
         return _number(table, key, where)
@@ -313,6 +323,9 @@ def load_case(path: str | Path) -> Case:
         mapping = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise CaseError(str(path), message=f"{path}: TOML syntax error: {err}") from None
+    if not mapping:  # only comments and blank lines
+        raise CaseError(str(path), message=f"{path}: the case file is empty; it needs "
+                        "[fluid], [geometry] and [drive] sections")
     return Case.from_dict(mapping, path)
 
 
@@ -410,7 +423,7 @@ def _parse_geometry(table: dict, source: Path | None) -> GeometrySpec:
     if shape in ("annulus", "coaxial-cylinders"):
         if values["inner_radius"] >= values["outer_radius"]:
             raise CaseError("geometry.inner_radius", table.get("inner_radius"),
-                            f"a value below geometry.outer_radius ({table.get('outer_radius')})")
+                            f"a value below geometry.outer_radius ({table.get('outer_radius')!r})")
     if shape == "annulus":
         e = _number(table, "eccentricity", "geometry", 0.0)
         if not 0.0 <= e < 1.0:
@@ -495,7 +508,7 @@ def _parse_wall_speed(table, geometry: GeometrySpec) -> dict[str, float]:
         for name in table:
             if name not in walls:
                 raise CaseError(f"{where}.{name}", message=(
-                    f"{where}.{name}: the {geometry.shape} has no wall named {name!r}"
+                    f"{where}.{_shown(name)}: the {geometry.shape} has no wall named {name!r}"
                     f"{_suggest(name, walls)}; its walls are: {', '.join(walls)}"))
     return {name: _dimensional(table, name, where, "velocity") for name in table}
 

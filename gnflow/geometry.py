@@ -23,7 +23,8 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from skfem import Basis, ElementLineP1, ElementLineP2, MeshLine
+from skfem import (Basis, ElementLineP1, ElementLineP2, ElementTriP1, ElementTriP2, FacetBasis,
+                   MeshLine, MeshTri, MeshTri2)
 
 from .case import Case
 from .errors import CaseError
@@ -162,7 +163,142 @@ def build_domain(case: Case, cells: int | None = None) -> Domain:
         }
         return Domain("coaxial-cylinders", "rotational", basis, walls, "r", True,
                       math.pi * (ro ** 2 - ri ** 2), 2 * (ro - ri), ro - ri, mesh.degree, cells)
-    raise CaseError("geometry.shape", g.shape if g.shape != "annulus" else
-                    f"annulus with eccentricity {g.eccentricity}",
-                    "a 1-D shape (slit, pipe, concentric annulus, coaxial-cylinders); 2-D "
-                    "cross-sections are not available in this version")
+    if g.shape == "rectangle":
+        return _rectangle(case, cells)
+    if g.shape == "annulus":
+        return _eccentric_annulus(case, cells)
+    from .meshfile import read_section
+    return _section_domain(case, *read_section(g.file, g.length_unit), cells=cells)
+
+
+# --------------------------------------------------------------------------- 2-D sections
+
+def _triangle_element(degree: int):
+    return ElementTriP2() if degree == 2 else ElementTriP1()
+
+
+def _tri_basis(mesh, degree: int) -> Basis:
+    return Basis(mesh, _triangle_element(degree), intorder=2 * degree + 2)
+
+
+def _wall_perimeter(mesh, degree: int, facets: np.ndarray) -> float:
+    facet_basis = FacetBasis(mesh, _triangle_element(degree), facets=facets)
+    return float(np.sum(facet_basis.dx))
+
+
+def _section_walls(basis: Basis, wall_facets: dict[str, np.ndarray], speeds: dict,
+                   order: list[str]) -> dict[str, Wall]:
+    """Walls from named boundary facets; where walls meet, the one later in ``order`` (a
+    moving wall is put last) owns the shared dofs."""
+    walls, taken = {}, set()
+    for name in reversed(order):
+        facets = wall_facets[name]
+        dofs = np.setdiff1d(basis.get_dofs(facets).all(), np.fromiter(taken, int, len(taken)))
+        taken.update(dofs.tolist())
+        perimeter = _wall_perimeter(basis.mesh, basis.elem.maxdeg, facets)
+        walls[name] = Wall(name, dofs, speeds.get(name, 0.0), perimeter)
+    return {name: walls[name] for name in order}
+
+
+def _moving_last(names, speeds) -> list[str]:
+    return sorted(names, key=lambda n: speeds.get(n, 0.0) != 0.0)
+
+
+def _rectangle(case: Case, cells: int) -> Domain:
+    g, spec = case.geometry, case.mesh
+    width, height = g.width, g.height
+    small = min(width, height)
+    nx = max(int(round(cells * width / small)), 1)
+    ny = max(int(round(cells * height / small)), 1)
+    x = width * graded_points(nx, spec.grading, "both")
+    y = height * graded_points(ny, spec.grading, "both")
+    mesh = MeshTri.init_tensor(x, y)
+    facets = mesh.boundary_facets()
+    mid = mesh.p[:, mesh.facets[:, facets]].mean(axis=1)
+    tol = 1e-9 * small
+    wall_facets = {"bottom": facets[mid[1] < tol], "top": facets[mid[1] > height - tol],
+                   "left": facets[mid[0] < tol], "right": facets[mid[0] > width - tol]}
+    speeds = case.drive.wall_speed
+    basis = _tri_basis(mesh, spec.degree)
+    walls = _section_walls(basis, wall_facets, speeds, _moving_last(wall_facets, speeds))
+    area = width * height
+    return Domain("rectangle", "axial", basis, walls, "x, y", False, area,
+                  4 * area / (2 * (width + height)), small, spec.degree, cells,
+                  {"width": width, "height": height, "nx": nx, "ny": ny})
+
+
+def _eccentric_annulus(case: Case, cells: int) -> Domain:
+    """Eccentric annulus: outer circle centred at the origin, inner circle at (d, 0) with
+    d = e (outer - inner). A structured mesh in (theta, s), s in [0, 1] across the gap,
+    mapped by x = (1 - s) * inner(theta) + s * outer(theta). P2 uses an isoparametric
+    quadratic mesh whose every node (edge midpoints included) lies on the exact map, so
+    the walls are the exact circles up to O(h^3), which keeps P2's order."""
+    g, spec = case.geometry, case.mesh
+    ri, ro = g.inner_radius, g.outer_radius
+    offset = g.eccentricity * (ro - ri)
+    n_gap = cells
+    mean_radius = 0.5 * (ri + ro)
+    n_theta = max(int(round(2 * math.pi * mean_radius / (ro - ri) * cells)), 12)
+    theta = np.linspace(0.0, 2 * math.pi, n_theta + 1)[:-1]
+    s = graded_points(n_gap, spec.grading, "both")
+
+    def mapped(t, r):
+        return np.array([(1 - r) * (offset + ri * np.cos(t)) + r * ro * np.cos(t),
+                         (1 - r) * ri * np.sin(t) + r * ro * np.sin(t)])
+
+    tt, ss = np.meshgrid(theta, s, indexing="ij")
+    param = np.array([tt.ravel(), ss.ravel()])           # node k = i * (n_gap + 1) + j
+    index = np.arange(n_theta * (n_gap + 1)).reshape(n_theta, n_gap + 1)
+    i0 = index[:, :-1]
+    i1 = np.roll(index, -1, axis=0)[:, :-1]            # next angle, wrapping around
+    j0 = index[:, 1:]
+    j1 = np.roll(index, -1, axis=0)[:, 1:]
+    t = np.hstack([np.array([i0.ravel(), i1.ravel(), j1.ravel()]),
+                   np.array([i0.ravel(), j1.ravel(), j0.ravel()])])
+    linear = MeshTri(mapped(*param), t)
+    if spec.degree == 2:
+        quadratic = MeshTri2.from_mesh(linear)
+        ends = param[:, linear.facets]                   # (2, 2, facets)
+        dtheta = ends[0, 1] - ends[0, 0]
+        # an edge across the seam theta = 0 = 2 pi: take the short way round
+        dtheta = np.where(dtheta > math.pi, dtheta - 2 * math.pi,
+                          np.where(dtheta < -math.pi, dtheta + 2 * math.pi, dtheta))
+        mid_theta = ends[0, 0] + 0.5 * dtheta
+        mid_s = ends[1].mean(axis=0)
+        doflocs = quadratic.doflocs.copy()
+        doflocs[:, linear.nvertices:] = mapped(mid_theta, mid_s)
+        mesh = MeshTri2(doflocs, quadratic.t)
+    else:
+        mesh = linear
+    facets = linear.boundary_facets()
+    s_mid = param[1, linear.facets[:, facets]].mean(axis=0)
+    wall_facets = {"inner": facets[s_mid < 0.5], "outer": facets[s_mid > 0.5]}
+    speeds = case.drive.wall_speed
+    basis = _tri_basis(mesh, spec.degree)
+    walls = _section_walls(basis, wall_facets, speeds, _moving_last(wall_facets, speeds))
+    area = math.pi * (ro ** 2 - ri ** 2)
+    return Domain("annulus", "axial", basis, walls, "x, y", False, area, 2 * (ro - ri),
+                  ro - ri, spec.degree, cells, {"eccentricity": g.eccentricity,
+                                               "offset": offset, "n_theta": n_theta})
+
+
+def _section_domain(case: Case, mesh, wall_facets: dict[str, np.ndarray], cells=None) -> Domain:
+    """A section read from a mesh file (see :mod:`gnflow.meshfile`)."""
+    spec = case.mesh
+    speeds = case.drive.wall_speed
+    for name in speeds:
+        if name not in wall_facets:
+            raise CaseError(f"drive.wall_speed.{name}", message=(
+                f"drive.wall_speed.{name}: the mesh {case.geometry.file.name} has no boundary "
+                f"group named {name!r}; its walls are: {', '.join(sorted(wall_facets))}"))
+    degree = spec.degree
+    if isinstance(mesh, MeshTri2) and degree == 1:
+        mesh = MeshTri(mesh.p, mesh.t)
+    basis = _tri_basis(mesh, degree)
+    walls = _section_walls(basis, wall_facets, speeds, _moving_last(wall_facets, speeds))
+    area = float(np.sum(basis.dx))
+    perimeter = sum(w.perimeter for w in walls.values())
+    extent = mesh.p.max(axis=1) - mesh.p.min(axis=1)
+    return Domain("mesh", "axial", basis, walls, "x, y", False, area, 4 * area / perimeter,
+                  float(min(extent)), degree, mesh.t.shape[1],
+                  {"file": str(case.geometry.file)})

@@ -112,6 +112,8 @@ class Solution:
     regularisation: dict | None = None
     warnings: list[str] = field(default_factory=list)
     rate_floor: float = 0.0
+    linear_solver: dict = field(default_factory=dict)
+    coarse: "Solution | None" = None   # the grid-sequencing solution this one started from
 
     def problem(self) -> "_Problem":
         """The discrete problem this solution solves (for post-processing)."""
@@ -139,6 +141,10 @@ class _Problem:
         self.fixed = domain.wall_dofs
         self.free = np.setdiff1d(np.arange(basis.N), self.fixed)
         self.rate_floor = 0.0
+        self.linear = LinearSolver("direct", self.free.size)
+
+    def reduced(self, matrix: sp.csr_matrix) -> sp.csr_matrix:
+        return matrix[self.free][:, self.free]
 
     def boundary_values(self) -> np.ndarray:
         u = np.zeros(self.domain.basis.N)
@@ -205,9 +211,63 @@ class _Problem:
     def flow_rate(self, u) -> float:
         return float(self.load @ u)
 
-    def solve_linear(self, matrix, rhs_free) -> np.ndarray:
-        reduced = matrix[self.free][:, self.free].tocsc()
-        return spla.spsolve(reduced, rhs_free)
+
+# --------------------------------------------------------------------------- linear algebra
+
+#: Free unknowns above which "auto" chooses algebraic multigrid over a sparse direct solve
+DIRECT_LIMIT = 60_000
+
+
+class LinearSolver:
+    """Solves the reduced (free-dof) systems of one nonlinear iteration.
+
+    ``direct``: a sparse LU factorisation (SuperLU), reused for every right-hand side of
+    the iteration. ``amg``: conjugate gradients preconditioned by a pyamg
+    smoothed-aggregation hierarchy. The hierarchy is kept across Newton iterations (the
+    tangent changes only through the viscosity) and rebuilt when CG needs more than
+    ``rebuild_after`` iterations: rebuilding costs several CG solves, so it pays only
+    once the old hierarchy has gone stale. The CG tolerance is the Newton forcing term
+    (inexact Newton), so early iterations are solved loosely and late ones tightly.
+    """
+
+    def __init__(self, method: str, size: int, rebuild_after: int = 40):
+        if method == "auto":
+            method = "direct" if size <= DIRECT_LIMIT else "amg"
+        self.method = method
+        self.rebuild_after = rebuild_after
+        self.hierarchy = None
+        self.preconditioner = None
+        self.matrix = None
+        self.factor = None
+        self.cg_iterations: list[int] = []
+        self.setups = 0
+
+    def prepare(self, matrix: sp.csr_matrix) -> None:
+        self.matrix = matrix
+        if self.method == "direct":
+            self.factor = spla.splu(matrix.tocsc())
+        elif self.hierarchy is None or (self.cg_iterations and
+                                        self.cg_iterations[-1] > self.rebuild_after):
+            import pyamg
+            self.hierarchy = pyamg.smoothed_aggregation_solver(
+                matrix, symmetry="symmetric", max_coarse=500, coarse_solver="splu",
+                # a local (Gershgorin-type) Jacobi weight needs no spectral-radius estimate
+                smooth=("jacobi", {"weighting": "local"}))
+            self.preconditioner = self.hierarchy.aspreconditioner(cycle="V")
+            self.setups += 1
+
+    def solve(self, rhs: np.ndarray, rtol: float = 1e-10, guess=None) -> np.ndarray:
+        if self.method == "direct":
+            return self.factor.solve(rhs)
+        count = [0]
+
+        def counter(_):
+            count[0] += 1
+        solution, info = spla.cg(self.matrix, rhs, x0=guess, rtol=rtol, maxiter=2000,
+                                 M=self.preconditioner,
+                                 callback=counter)
+        self.cg_iterations.append(count[0])
+        return solution
 
 
 # --------------------------------------------------------------------------- scales
@@ -278,20 +338,25 @@ def _newton(problem: _Problem, u, gradient, target_rate, tol, max_iterations, hi
         return max(r, constraint), r
 
     current, residual = merit(u, gradient)
+    previous = current
     for _ in range(max_iterations):
         if current <= tol:
             return u, gradient, True, iteration
         iteration += 1
         J = problem.tangent(u)
         r = problem.residual(u, gradient)
-        reduced = J[problem.free][:, problem.free].tocsc()
-        lu = spla.splu(reduced)
+        problem.linear.prepare(problem.reduced(J))
+        # forcing term (Eisenstat-Walker choice 2 style): solve as tightly as the
+        # nonlinear residual has just been reduced, never looser than 0.1
+        forcing = min(0.1, max(0.9 * (current / previous) ** 2, 1e-3 * tol / max(current, 1e-300),
+                               1e-12)) if iteration > start_iteration + 1 else 1e-2
+        previous = current
         du = np.zeros_like(u)
-        du[problem.free] = lu.solve(-r[problem.free])
+        du[problem.free] = problem.linear.solve(-r[problem.free], forcing)
         d_gradient = 0.0
         if not fixed_gradient:
             dg = np.zeros_like(u)
-            dg[problem.free] = lu.solve(-problem.load[problem.free])
+            dg[problem.free] = problem.linear.solve(-problem.load[problem.free], 1e-10)
             d_gradient = (target_rate - problem.flow_rate(u) - problem.flow_rate(du)) / \
                 problem.flow_rate(dg)
             du += d_gradient * dg
@@ -361,18 +426,18 @@ def _line_search(problem: _Problem, u, gradient, du, d_gradient) -> float:
 def _picard_step(problem: _Problem, u, gradient, target_rate):
     A = problem.frozen(u)
     base = problem.boundary_values()
+    problem.linear.prepare(problem.reduced(A))
+    guess = u[problem.free] if problem.linear.method == "amg" else None
     if target_rate is None:
         rhs = -(A @ base) - gradient * problem.load
         new = base.copy()
-        new[problem.free] = problem.solve_linear(A, rhs[problem.free])
+        new[problem.free] = problem.linear.solve(rhs[problem.free], 1e-12, guess)
         return new, gradient
     # u = u_walls + G * u_unit: the flow rate is affine in G for a frozen viscosity
-    reduced = A[problem.free][:, problem.free].tocsc()
-    lu = spla.splu(reduced)
     walls = base.copy()
-    walls[problem.free] = lu.solve(-(A @ base)[problem.free])
+    walls[problem.free] = problem.linear.solve(-(A @ base)[problem.free], 1e-12)
     unit = np.zeros_like(u)
-    unit[problem.free] = lu.solve(-problem.load[problem.free])
+    unit[problem.free] = problem.linear.solve(-problem.load[problem.free], 1e-12)
     new_gradient = (target_rate - problem.flow_rate(walls)) / problem.flow_rate(unit)
     return walls + new_gradient * unit, new_gradient
 
@@ -397,10 +462,51 @@ def _initial_state(problem: _Problem, case: Case, model: rheology.Model, rate: f
     """A Newtonian solution with the model's viscosity at the characteristic rate."""
     reference = rheology.Newtonian(float(model.viscosity(np.array([rate]))[0]))
     newtonian = _Problem(problem.domain, reference)
+    newtonian.linear = problem.linear
     gradient = case.drive.pressure_gradient or 0.0
     u, gradient = _picard_step(newtonian, newtonian.boundary_values(), gradient,
                                case.drive.flow_rate)
     return u, gradient
+
+
+#: 2-D structured sections with more unknowns than this are solved first on a mesh half
+#: as fine (recursively), and the result interpolated as the fine mesh's initial state
+SEQUENCING_LIMIT = 20_000
+
+
+def _interpolated(coarse: "Solution", domain: Domain) -> np.ndarray:
+    """The coarse solution evaluated at the fine mesh's dofs.
+
+    The coarse field is evaluated on a straight-sided copy of its mesh (same dofs); each
+    fine dof is located in the coarse triangle, among its nearest ones, whose
+    barycentric coordinates are least negative, so that points in the thin slivers
+    between a curved wall and its chords are extrapolated from the adjacent triangle.
+    """
+    from scipy.spatial import cKDTree
+    from skfem import Basis, MeshTri
+
+    coarse_mesh = coarse.domain.basis.mesh
+    linear = MeshTri(coarse_mesh.p, coarse_mesh.t)
+    basis = Basis(linear, coarse.domain.basis.elem)
+    x = domain.basis.doflocs
+    centroids = linear.p[:, linear.t].mean(axis=1)
+    k = min(8, linear.t.shape[1])
+    _, candidates = cKDTree(centroids.T).query(x.T, k=k)
+    candidates = candidates.reshape(x.shape[1], k)
+    best = np.full(x.shape[1], -np.inf)
+    cells = candidates[:, 0].copy()
+    for column in range(k):
+        tind = candidates[:, column]
+        ref = basis.mapping.invF(x[:, :, np.newaxis], tind=tind)[:, :, 0]
+        inside = np.minimum(np.minimum(ref[0], ref[1]), 1 - ref[0] - ref[1])
+        better = inside > best
+        best[better], cells[better] = inside[better], tind[better]
+    ref = basis.mapping.invF(x[:, :, np.newaxis], tind=cells)
+    values = np.zeros(x.shape[1])
+    for local in range(basis.Nbfun):
+        phi = basis.elem.gbasis(basis.mapping, ref, local, tind=cells)[0].value[:, 0]
+        values += phi * coarse.u[basis.element_dofs[local, cells]]
+    return values
 
 
 def solve(case: Case, cells: int | None = None, domain: Domain | None = None) -> Solution:
@@ -415,6 +521,12 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None) ->
     """
     started = time.perf_counter()
     domain = domain or build_domain(case, cells)
+    coarse = None
+    if (domain.dimension == 2 and domain.shape in ("rectangle", "annulus")
+            and domain.dofs > SEQUENCING_LIMIT and domain.cells >= 4):
+        coarse = solve(case, cells=domain.cells // 2)
+        if not coarse.converged:
+            coarse = None
     spec = case.solver
     model = case.fluid.model
     history: list[Iteration] = []
@@ -430,9 +542,18 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None) ->
             start = min(start, user_parameter) if model.regularisation == "papanastasiou" \
                 else max(start, user_parameter)
         model = model.with_regularisation(start)
+    if coarse is not None and yield_stress:
+        model = coarse.model  # already regularised as sharply as the flow needs
     problem = _Problem(domain, model)
     problem.rate_floor = RATE_FLOOR * rate
-    u, gradient = _initial_state(problem, case, model, rate)
+    problem.linear = LinearSolver(spec.linear_solver, problem.free.size)
+    if coarse is not None:
+        u = _interpolated(coarse, domain)
+        for wall in domain.walls.values():
+            u[wall.dofs] = wall.value
+        gradient = coarse.pressure_gradient
+    else:
+        u, gradient = _initial_state(problem, case, model, rate)
     target = case.drive.flow_rate
     iterate = _newton if spec.method == "newton" else _picard
     budget = spec.max_iterations
@@ -490,9 +611,15 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None) ->
             message += "; try solver.method = \"newton\""
         else:
             message += "; try more solver.max_iterations or a finer mesh"
-    return Solution(case, domain, model, u, float(gradient) if domain.kind == "axial" else 0.0,
-                    bool(converged), used, float(residual), history, message,
-                    time.perf_counter() - started, regularisation, [], problem.rate_floor)
+    solution = Solution(case, domain, model, u,
+                        float(gradient) if domain.kind == "axial" else 0.0,
+                        bool(converged), used, float(residual), history, message,
+                        time.perf_counter() - started, regularisation, [], problem.rate_floor)
+    solution.linear_solver = {"method": problem.linear.method,
+                              "amg_setups": problem.linear.setups,
+                              "cg_iterations": sum(problem.linear.cg_iterations)}
+    solution.coarse = coarse
+    return solution
 
 
 def _regularisation_error(problem: _Problem, u, gradient, target, spec, case) -> float | None:
@@ -502,6 +629,7 @@ def _regularisation_error(problem: _Problem, u, gradient, target, spec, case) ->
     softer = _Problem(problem.domain, model.with_regularisation(
         model.regularisation_parameter * factor))
     softer.rate_floor = problem.rate_floor
+    softer.linear = problem.linear
     u2, g2, ok, _ = _newton(softer, u.copy(), gradient, target, spec.tolerance, 50, [], 0)
     if not ok:
         return None

@@ -65,7 +65,8 @@ def _target_units(dimension: str, flow_index: float | None):
 def _expected(dimension: str, flow_index: float | None) -> str:
     unit = si_unit(dimension, flow_index)
     what = dimension.replace("_", " ")
-    return f"a {what} (a number in {unit}, or a string with units such as \"{_example(dimension)}\")" \
+    article = "an" if what[0] in "aeiou" else "a"
+    return f"{article} {what} (a number in {unit}, or a string with units such as \"{_example(dimension)}\")" \
         if unit else "a plain number"
 
 

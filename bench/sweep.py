@@ -1,0 +1,47 @@
+"""Benchmark: a 1000-case 1-D sweep with 1 and 2 worker processes (target: <= 30 s on 2 cores).
+
+The case is a shear-thinning (power-law, n = 0.5) fluid in a pipe, driven by a pressure
+gradient varied over 1000 values; every case is a full build, solve and summary, no
+output files. Prints a table: cases, workers, wall seconds, cases per second, and the
+speed-up over one worker measured in the same run.
+
+    python bench/sweep.py [--cases 1000] [--workers 1 2] [--cells 200]
+"""
+
+import argparse
+import os
+
+from gnflow import Case
+from gnflow.sweep import parse_vary, run_sweep
+
+
+def main():
+    parser = argparse.ArgumentParser()
+    parser.add_argument("--cases", type=int, default=1000)
+    parser.add_argument("--workers", type=int, nargs="+", default=[1, 2])
+    parser.add_argument("--cells", type=int, default=200)
+    args = parser.parse_args()
+    case = Case.from_dict({
+        "title": "bench: power-law pipe",
+        "fluid": {"model": "power-law", "consistency": 2.0, "flow_index": 0.5,
+                  "density": 1100.0},
+        "geometry": {"shape": "pipe", "radius": "25 mm"},
+        "drive": {"pressure_gradient": "-1 kPa/m"},
+        "mesh": {"cells": args.cells}})
+    vary = parse_vary(f"drive.pressure_gradient=-0.5kPa/m:-50kPa/m:{args.cases}", case)
+    print(f"{args.cases}-case sweep of drive.pressure_gradient, power-law pipe, "
+          f"{args.cells} cells P2; {os.cpu_count()} cores, load average "
+          f"{os.getloadavg()[0]:.1f} at start")
+    print(f"{'cases':>6s} {'workers':>8s} {'seconds':>8s} {'cases/s':>8s} {'speed-up':>9s} "
+          f"{'failed':>7s}")
+    base = None
+    for workers in args.workers:
+        table = run_sweep(case, [vary], workers=workers, show_progress=False)
+        base = base or table.seconds
+        print(f"{len(table.rows):6d} {workers:8d} {table.seconds:8.1f} "
+              f"{len(table.rows) / table.seconds:8.1f} {base / table.seconds:9.2f} "
+              f"{table.failed:7d}")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,498 @@
+"""Mesh-convergence studies: one case solved on a sequence of refined meshes.
+
+Where :mod:`gnflow.analytic` has a reference for the case (every 1-D shape driven by a
+pressure gradient or by cylinder rotation), each level is compared with it: the L2 norm
+and H1 seminorm of the velocity error, weighted by the area element, and the relative
+error of the flow rate (or torque), with the observed order between each level and the
+one before it. Yield-stress fluids are compared with the *regularised* model as solved,
+so that the orders measure discretisation error alone; the regularisation error is a
+separate study (``verification/run_suite.py``).
+
+Where there is no reference (a flow-rate target, or a shape without one), the finest
+level gets the Richardson-extrapolated value, the apparent order and the grid
+convergence index of the three-grid procedure of Celik et al. (2008), with the safety
+factor 1.25 of Roache (1998); every level from the third on gets the same estimate
+with itself as the finest of three.
+
+Error norms. The velocity error ``e = u_h - u`` is integrated on a quadrature basis of
+a much higher order than the solver's (the reference is not a polynomial), at the
+quadrature points of the same mesh:
+``|e|_L2 = (int e^2 a dx)^(1/2)``, ``|e|_H1 = (int (de/dx)^2 a dx)^(1/2)``, ``a`` the area
+weight (1 per unit width, ``2 pi r`` axisymmetric). The exact gradient comes from the
+momentum balance, not from differencing: the reference gives the shear stress ``tau(x)``,
+and ``du/dx = sign(tau) rate(|tau|)`` with the flow curve inverted by
+:func:`gnflow.analytic.rate_from_stress` (rotational flow: ``domega/dr`` is that over ``r``).
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+from skfem import Basis
+
+from . import analytic
+from .case import Case, load_case
+from .convergence import ROACHE_SAFETY_FACTOR, grid_convergence_index, observed_orders
+from .errors import CaseError
+from .export import atomic_directory
+from .solver import Solution, solve
+
+MIN_LEVELS, MAX_LEVELS = 2, 8
+#: the finest mesh a 1-D study may ask for (cells across the gap)
+MAX_CELLS_1D = 200_000
+#: Gauss order of the error quadrature; the references are smooth away from at most a
+#: few points, and a rule this high keeps the quadrature error under the finest
+#: discretisation error of the suite
+ERROR_QUADRATURE_ORDER = 16
+
+Progress = Callable[[int, int, int, str], None]
+
+
+@dataclass(frozen=True)
+class Level:
+    """One mesh of a study and what was measured on it."""
+
+    level: int
+    cells: int
+    dofs: int
+    h: float
+    value: float                      # flow rate (m^3/s or m^2/s) or torque per length
+    pressure_gradient: float
+    converged: bool
+    iterations: int
+    seconds: float
+    unyielded_fraction: float | None = None
+    l2_error: float | None = None
+    h1_error: float | None = None
+    value_error: float | None = None  # relative error of ``value`` against the reference
+
+
+@dataclass
+class VerificationResult:
+    """A convergence study: the levels, the orders and (without a reference) the GCI."""
+
+    case: Case
+    degree: int
+    ratio: float
+    quantity: str                     # "flow_rate", "torque_per_length" or "pressure_gradient"
+    levels: list[Level]
+    has_reference: bool
+    reference_value: float | None = None
+    reference_note: str = ""
+    l2_orders: np.ndarray | None = None
+    h1_orders: np.ndarray | None = None
+    value_orders: np.ndarray | None = None
+    gci: list = field(default_factory=list)   # ThreeGridEstimate or None per level
+
+    @property
+    def expected_orders(self) -> dict[str, float]:
+        """The formal orders of Lagrange elements of this degree on smooth solutions."""
+        return {"l2": self.degree + 1.0, "h1": float(self.degree),
+                "flow_rate": 2.0 * self.degree}
+
+    @property
+    def finest_gci(self):
+        return self.gci[-1] if self.gci else None
+
+    @property
+    def quantity_label(self) -> str:
+        return {"flow_rate": "flow rate", "torque_per_length": "torque per length",
+                "pressure_gradient": "pressure gradient"}[self.quantity]
+
+
+# --------------------------------------------------------------------------- checks
+
+def level_cells(base_cells: int, levels: int, ratio: float) -> list[int]:
+    """Cells of each level, coarse to fine: ``base * ratio^k``, which must be whole.
+
+    >>> level_cells(8, 4, 2.0)
+    [8, 16, 32, 64]
+    >>> level_cells(4, 3, 1.5)
+    [4, 6, 9]
+    """
+    if not isinstance(levels, (int, np.integer)) or not MIN_LEVELS <= levels <= MAX_LEVELS:
+        raise CaseError("--levels", levels, f"a whole number from {MIN_LEVELS} to {MAX_LEVELS}")
+    if not (isinstance(ratio, (int, float)) and math.isfinite(ratio) and ratio > 1):
+        raise CaseError("--ratio", ratio, "a refinement ratio > 1")
+    cells = []
+    for k in range(levels):
+        exact = base_cells * ratio ** k
+        whole = round(exact)
+        if abs(exact - whole) > 1e-9 * max(1.0, exact):
+            raise CaseError("--ratio", ratio, (
+                f"a ratio giving whole cell counts from mesh.cells = {base_cells}; level {k + 1} "
+                f"would have {exact:g} cells (try ratio 2, or mesh.cells divisible by the "
+                f"ratio's denominator)"))
+        cells.append(int(whole))
+    if cells[-1] > MAX_CELLS_1D:
+        raise CaseError("--levels", levels, (
+            f"at most {MAX_CELLS_1D} cells on the finest level; {levels} levels from "
+            f"mesh.cells = {base_cells} at ratio {ratio:g} reach {cells[-1]}"))
+    return cells
+
+
+# --------------------------------------------------------------------------- references
+
+def reference_for(case: Case, model):
+    """The analytic reference of a case for ``model`` (the model as solved), or ``None``.
+
+    Yield-stress models are taken with their regularisation (``regularised=True``).
+    """
+    g, d = case.geometry, case.drive
+    regularised = bool(getattr(model, "is_yield_stress", False))
+    if g.shape == "coaxial-cylinders":
+        return analytic.coaxial_flow(model, g.inner_radius, g.outer_radius,
+                                     d.inner_angular_speed, d.outer_angular_speed,
+                                     regularised=regularised)
+    if d.flow_rate is not None or not d.pressure_gradient and not d.wall_speed:
+        return None
+    speeds = d.wall_speed
+    G = d.pressure_gradient or 0.0
+    if g.shape == "slit":
+        return analytic.slit_flow(model, g.gap, G, speeds.get("bottom", 0.0),
+                                  speeds.get("top", 0.0), regularised=regularised)
+    if g.shape == "pipe":
+        return analytic.pipe_flow(model, g.radius, G, regularised=regularised)
+    if g.shape == "annulus" and g.eccentricity == 0.0:
+        return analytic.annulus_flow(model, g.inner_radius, g.outer_radius, G,
+                                     speeds.get("inner", 0.0), speeds.get("outer", 0.0),
+                                     regularised=regularised)
+    return None
+
+
+def _exact_gradient(reference, model, x, rotational: bool):
+    """``du/dx`` of the reference at points ``x`` from its stress and the flow curve."""
+    regularised = bool(getattr(model, "is_yield_stress", False))
+    stress = np.asarray(reference.shear_stress(x), dtype=float)
+    rate = analytic.rate_from_stress(model, np.abs(stress).ravel(),
+                                     regularised=regularised).reshape(stress.shape)
+    signed = np.sign(stress) * rate
+    return signed / x if rotational else signed
+
+
+def error_norms(solution: Solution, reference) -> tuple[float, float]:
+    """``(|u_h - u|_L2, |u_h - u|_H1)`` with the area weight, on a high-order rule."""
+    domain = solution.domain
+    basis = Basis(domain.basis.mesh, domain.basis.elem, intorder=ERROR_QUADRATURE_ORDER)
+    x = np.asarray(basis.global_coordinates())
+    weight = domain.area_weight(x) * basis.dx
+    field_h = basis.interpolate(solution.u)
+    rotational = domain.kind == "rotational"
+    exact = reference.angular_speed(x[0]) if rotational else reference.velocity(x[0])
+    exact_gradient = _exact_gradient(reference, solution.model, x[0], rotational)
+    l2 = math.sqrt(float(np.sum((np.asarray(field_h) - exact) ** 2 * weight)))
+    h1 = math.sqrt(float(np.sum((field_h.grad[0] - exact_gradient) ** 2 * weight)))
+    return l2, h1
+
+
+# --------------------------------------------------------------------------- the study
+
+def _quantity(case: Case) -> str:
+    if case.geometry.shape == "coaxial-cylinders":
+        return "torque_per_length"
+    return "pressure_gradient" if case.drive.flow_rate is not None else "flow_rate"
+
+
+def _cell_size(solution: Solution, cells: int) -> float:
+    domain = solution.domain
+    if domain.dimension == 1:
+        return domain.length_scale / cells  # the mean cell length across the gap
+    from .convergence import representative_cell_size
+    return float(representative_cell_size([domain.basis.mesh.nelements], domain.dimension,
+                                          domain.area)[0])
+
+
+def run_verification(case: Case, levels: int = 4, ratio: float = 2.0,
+                     progress: Progress | None = None,
+                     use_reference: bool = True) -> VerificationResult:
+    """Solve ``case`` on ``levels`` meshes, from ``case.mesh.cells`` refined by ``ratio``.
+
+    ``progress(index, levels, cells, stage)`` is called with ``stage`` ``"start"`` and
+    ``"done"`` around each level (``index`` from 1). ``use_reference=False`` skips the
+    analytic comparison and reports the grid convergence index only.
+
+    >>> from gnflow.case import Case
+    >>> case = Case.from_dict({"fluid": {"model": "newtonian", "viscosity": 1.0},
+    ...     "geometry": {"shape": "annulus", "inner_radius": 0.5, "outer_radius": 1.0},
+    ...     "drive": {"pressure_gradient": -8.0}, "mesh": {"cells": 8, "degree": 1}})
+    >>> result = run_verification(case, levels=3)
+    >>> [round(float(p), 1) for p in result.l2_orders[1:]]
+    [2.0, 2.0]
+    """
+    cells_per_level = level_cells(case.mesh.cells, levels, ratio)
+    quantity = _quantity(case)
+    measured: list[Level] = []
+    reference = None
+    for index, cells in enumerate(cells_per_level, start=1):
+        if progress:
+            progress(index, levels, cells, "start")
+        solution = solve(case, cells=cells)
+        summary = solution.summary()
+        value = solution.pressure_gradient if quantity == "pressure_gradient" \
+            else summary[quantity]
+        l2 = h1 = value_error = None
+        if use_reference:
+            # the model as solved: its regularisation can depend on the mesh
+            reference = reference_for(case, solution.model)
+            if reference is not None:
+                l2, h1 = error_norms(solution, reference)
+                exact = reference.torque_per_length if quantity == "torque_per_length" \
+                    else reference.flow_rate
+                value_error = abs(value - exact) / max(abs(exact), 1e-300)
+        measured.append(Level(index, cells, solution.domain.dofs,
+                              _cell_size(solution, cells), float(value),
+                              float(solution.pressure_gradient), solution.converged,
+                              solution.iterations, solution.seconds,
+                              summary.get("unyielded_fraction"), l2, h1, value_error))
+        if progress:
+            progress(index, levels, cells, "done")
+    result = VerificationResult(case, case.mesh.degree, float(ratio), quantity, measured,
+                                reference is not None)
+    h = [lv.h for lv in measured]
+    if result.has_reference:
+        result.reference_value = (reference.torque_per_length if quantity ==
+                                  "torque_per_length" else reference.flow_rate)
+        result.reference_note = ("gnflow.analytic, model as solved"
+                                 + (" (regularised)" if case.fluid.model.is_yield_stress
+                                    else ""))
+        result.l2_orders = observed_orders(h, [lv.l2_error for lv in measured])
+        result.h1_orders = observed_orders(h, [lv.h1_error for lv in measured])
+        result.value_orders = observed_orders(h, [lv.value_error for lv in measured])
+    values = [lv.value for lv in measured]
+    result.gci = [None, None] + [grid_convergence_index(h[i - 2:i + 1], values[i - 2:i + 1],
+                                                        ROACHE_SAFETY_FACTOR)
+                                 for i in range(2, len(measured))]
+    result.gci = result.gci[:len(measured)]
+    return result
+
+
+# --------------------------------------------------------------------------- files
+
+def _cell(value, digits: int = 10) -> str:
+    if value is None:
+        return ""
+    if isinstance(value, (bool, np.bool_)):
+        return "true" if value else "false"
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    value = float(value)
+    return f"{value:.{digits}g}" if math.isfinite(value) else ""
+
+
+def csv_rows(result: VerificationResult) -> tuple[list[str], list[list[str]]]:
+    """Header and rows of ``convergence.csv``."""
+    q = result.quantity
+    value_name = "flow_rate" if q == "pressure_gradient" else q
+    header = ["level", "cells", "dofs", "h", value_name]
+    if q != "torque_per_length":
+        header.append("pressure_gradient")
+    header += ["converged", "iterations"]
+    if result.case.fluid.model.is_yield_stress:
+        header.append("unyielded_fraction")
+    if result.has_reference:
+        error_name = f"{value_name}_error"
+        header += ["l2_error", "h1_error", error_name, "l2_order", "h1_order",
+                   f"{value_name}_order"]
+    else:
+        # the quantity studied is named: with a flow-rate target it is the pressure gradient
+        header += [f"extrapolated_{q}", "apparent_order", "gci_fine"]
+    rows = []
+    for i, lv in enumerate(result.levels):
+        flow = result.case.drive.flow_rate if q == "pressure_gradient" else lv.value
+        row = [_cell(lv.level), _cell(lv.cells), _cell(lv.dofs), _cell(lv.h), _cell(flow)]
+        if q != "torque_per_length":
+            row.append(_cell(lv.pressure_gradient))
+        row += [_cell(lv.converged), _cell(lv.iterations)]
+        if result.case.fluid.model.is_yield_stress:
+            row.append(_cell(lv.unyielded_fraction))
+        if result.has_reference:
+            row += [_cell(lv.l2_error), _cell(lv.h1_error), _cell(lv.value_error),
+                    _cell(result.l2_orders[i], 4), _cell(result.h1_orders[i], 4),
+                    _cell(result.value_orders[i], 4)]
+        else:
+            g = result.gci[i]
+            row += ["", "", ""] if g is None else [_cell(g.extrapolated_value),
+                                                   _cell(g.apparent_order, 4),
+                                                   _cell(g.gci_fine, 4)]
+        rows.append(row)
+    return header, rows
+
+
+def format_table(result: VerificationResult) -> str:
+    """The terminal table: one line per level."""
+    q = result.quantity
+    label = {"flow_rate": "flow rate", "torque_per_length": "torque/len",
+             "pressure_gradient": "dp/dz"}[q]
+    if result.has_reference:
+        head = ["level", "cells", "dofs", label, "L2 error", "order", "H1 error", "order",
+                f"{label} err", "order"]
+    else:
+        head = ["level", "cells", "dofs", label, "extrapolated", "app. order", "GCI"]
+    lines = []
+    for i, lv in enumerate(result.levels):
+        cols = [str(lv.level), str(lv.cells), str(lv.dofs), f"{lv.value:.8g}"]
+        if result.has_reference:
+            cols += [f"{lv.l2_error:.3e}", _order_text(result.l2_orders[i]),
+                     f"{lv.h1_error:.3e}", _order_text(result.h1_orders[i]),
+                     f"{lv.value_error:.3e}", _order_text(result.value_orders[i])]
+        else:
+            g = result.gci[i]
+            cols += ["-", "-", "-"] if g is None else [
+                f"{g.extrapolated_value:.8g}" if g.converging else "n/a",
+                _order_text(g.apparent_order),
+                f"{100 * g.gci_fine:.3g} %" if g.converging else "n/a"]
+        lines.append(cols)
+    widths = [max(len(h), *(len(c[k]) for c in lines)) for k, h in enumerate(head)]
+    out = ["  ".join(h.rjust(w) for h, w in zip(head, widths))]
+    out += ["  ".join(c.rjust(w) for c, w in zip(cols, widths)) for cols in lines]
+    return "\n".join(out)
+
+
+def _order_text(order) -> str:
+    return "-" if order is None or not np.isfinite(order) else f"{order:.2f}"
+
+
+def convergence_plot(result: VerificationResult, path: Path) -> None:
+    """Log-log errors against cell size, with reference slopes of the formal orders."""
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    h = np.array([lv.h for lv in result.levels])
+    fig, ax = plt.subplots(figsize=(5.8, 4.2))
+    if result.has_reference:
+        series = [("L2 error", [lv.l2_error for lv in result.levels], "o-", "l2"),
+                  ("H1 error", [lv.h1_error for lv in result.levels], "s-", "h1"),
+                  (f"{result.quantity_label} rel. error",
+                   [lv.value_error for lv in result.levels], "^-", "flow_rate")]
+        for label, values, style, key in series:
+            values = np.array(values, dtype=float)
+            positive = values > 0
+            if not positive.any():
+                continue
+            line, = ax.loglog(h[positive], values[positive], style, ms=4, label=label)
+            p = result.expected_orders[key]
+            anchor = np.flatnonzero(positive)[0]
+            ax.loglog(h, values[anchor] * (h / h[anchor]) ** p, ":", color=line.get_color(),
+                      lw=0.9, label=f"slope {p:g}")
+        ax.set_ylabel("error")
+    else:
+        g = result.finest_gci
+        values = np.array([lv.value for lv in result.levels])
+        if g is not None and g.converging:
+            distance = np.abs(values - g.extrapolated_value) / abs(g.extrapolated_value)
+            keep = distance > 0
+            ax.loglog(h[keep], distance[keep], "o-", ms=4,
+                      label=f"|{result.quantity_label} - extrapolated| (rel.)")
+        diffs = np.abs(np.diff(values)) / np.abs(values[1:])
+        ax.loglog(h[1:], diffs, "s--", ms=4, label="change from previous level (rel.)")
+        ax.set_ylabel("relative difference")
+    ax.set_xlabel("cell size h [m]")
+    ax.set_title(f"{result.case.title}: P{result.degree}", fontsize=9)
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=7)
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+
+
+def interpretation(result: VerificationResult) -> str:
+    """One sentence on what the finest orders say."""
+    if result.has_reference:
+        e = result.expected_orders
+        p2, p1 = result.l2_orders[-1], result.h1_orders[-1]
+        close = abs(p2 - e["l2"]) <= 0.15 and abs(p1 - e["h1"]) <= 0.15
+        verdict = ("in line with the formal orders, so the discretisation behaves as "
+                   "designed on this case" if close else
+                   "away from the formal orders: either the profile is not smooth enough "
+                   "for them (see its regularity) or the meshes are not yet asymptotic")
+        return (f"On the finest pair the observed orders are {p2:.2f} (L2) and {p1:.2f} (H1) "
+                f"against formal orders {e['l2']:g} and {e['h1']:g} for P{result.degree}, "
+                f"{verdict}.")
+    g = result.finest_gci
+    if g is None:
+        return "Two levels give no apparent order; use three or more for a GCI."
+    if not g.converging:
+        return f"The three finest levels do not show convergence ({g.note})."
+    return (f"The three finest levels show {g.note}, a Richardson-extrapolated "
+            f"{result.quantity_label} of "
+            f"{g.extrapolated_value:.8g} and a grid convergence index of "
+            f"{100 * g.gci_fine:.3g} % on the finest mesh (Celik et al. 2008, Fs = "
+            f"{g.safety_factor:g}).")
+
+
+def markdown_report(result: VerificationResult, plot_name: str = "convergence.png") -> str:
+    case = result.case
+    header, rows = csv_rows(result)
+    lines = [f"# Mesh convergence: {case.title}", "",
+             f"* fluid: {case.fluid.model.name}; shape: {case.geometry.shape}; "
+             f"P{result.degree} elements",
+             f"* {len(result.levels)} levels from {result.levels[0].cells} to "
+             f"{result.levels[-1].cells} cells (refinement ratio {result.ratio:g})",
+             "* reference: " + (result.reference_note if result.has_reference else
+                                "none; discretisation uncertainty by the three-grid "
+                                "procedure of Celik et al. (2008), safety factor 1.25"),
+             "", "| " + " | ".join(header) + " |", "|" + "---|" * len(header)]
+    lines += ["| " + " | ".join(r) + " |" for r in rows]
+    lines += ["", interpretation(result), "", f"![convergence plot]({plot_name})", ""]
+    if not all(lv.converged for lv in result.levels):
+        lines.insert(6, "* WARNING: the solver did not converge on every level; the orders "
+                        "are not reliable")
+    return "\n".join(lines)
+
+
+def write_verification(result: VerificationResult, out_dir: Path) -> list[str]:
+    """Write ``convergence.csv``, ``convergence.png`` and ``report.md`` atomically."""
+    out_dir = Path(out_dir)
+    with atomic_directory(out_dir) as staging:
+        header, rows = csv_rows(result)
+        with open(staging / "convergence.csv", "w", newline="", encoding="utf-8") as handle:
+            writer = csv.writer(handle)
+            writer.writerow(header)
+            writer.writerows(rows)
+        convergence_plot(result, staging / "convergence.png")
+        (staging / "report.md").write_text(markdown_report(result), encoding="utf-8")
+        written = sorted(p.name for p in staging.iterdir())
+    return written
+
+
+# --------------------------------------------------------------------------- command
+
+def _terminal_progress(stream=None) -> Progress:
+    stream = stream or sys.stderr
+    started = {}
+
+    def report(index, total, cells, stage):
+        if stage == "start":
+            started[index] = time.perf_counter()
+            stream.write(f"  [{index}/{total}] solving on {cells} cells ...")
+            stream.flush()
+        else:
+            stream.write(f" {time.perf_counter() - started[index]:.2f} s\n")
+            stream.flush()
+    return report
+
+
+def run_verify_command(case_path, levels: int = 4, ratio: float = 2.0,
+                       out_dir=None) -> int:
+    """``gnflow verify``: run the study, print the table, write the files; returns 0."""
+    case = load_case(case_path)
+    level_cells(case.mesh.cells, levels, ratio)   # bad options fail before any solve
+    out = Path(out_dir) if out_dir else Path("results") / f"{Path(case_path).stem}-verify"
+    print(f"gnflow verify: {case.title} ({case.fluid.model.name}, {case.geometry.shape}, "
+          f"P{case.mesh.degree}), {levels} levels at ratio {ratio:g}", flush=True)
+    result = run_verification(case, levels, ratio, progress=_terminal_progress())
+    print(format_table(result))
+    print(interpretation(result))
+    written = write_verification(result, out)
+    print(f"  wrote {out}/: {', '.join(written)}")
+    if not all(lv.converged for lv in result.levels):
+        print("gnflow: WARNING: the solver did not converge on every level", file=sys.stderr)
+    return 0
