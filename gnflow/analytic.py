@@ -839,7 +839,7 @@ def slit_flow(model, gap, pressure_gradient, bottom_speed=0.0, top_speed=0.0,
     stress is then indeterminate and the symmetric field ``tau_b = -G h / 2`` (the limit
     of any regularisation) is reported. Valid for steady laminar fully developed flow.
     Source: the construction is the standard one for GN slit flow, e.g. Bird, Stewart &
-    Lightfoot, *Transport Phenomena*, 2nd ed., section 8.3.
+    Lightfoot, *Transport Phenomena*, 2nd ed., section 8.3 (recalled from memory).
 
     >>> class Linear:
     ...     name = "newtonian"

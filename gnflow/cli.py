@@ -41,6 +41,26 @@ def _build_parser() -> argparse.ArgumentParser:
     verify.add_argument("--levels", type=int, default=4, help="number of meshes (default 4)")
     verify.add_argument("--ratio", type=float, default=2.0, help="refinement ratio (default 2)")
     verify.add_argument("--out", help="results folder (default results/<case stem>-verify/)")
+    sweep = sub.add_parser("sweep", help="solve a grid of cases varying dotted case keys")
+    sweep.add_argument("case")
+    sweep.add_argument("--vary", action="append", required=True, metavar="KEY=START:STOP:COUNT",
+                       help="e.g. drive.pressure_gradient=-1kPa/m:-10kPa/m:10 (repeat for a grid)")
+    sweep.add_argument("--log", action="store_true", help="geometric spacing")
+    group = sweep.add_mutually_exclusive_group()
+    group.add_argument("--workers", type=int, help="local worker processes (default: cores)")
+    group.add_argument("--scheduler", help="address of a dask.distributed scheduler")
+    sweep.add_argument("--plot", help="output to plot against the first varied key")
+    sweep.add_argument("--out", help="results folder (default results/<case stem>-sweep/)")
+    curve = sub.add_parser("flow-curve", help="flow rate against pressure gradient, for pump "
+                           "matching")
+    curve.add_argument("case")
+    curve.add_argument("--from", dest="start", required=True, help="first value, with units")
+    curve.add_argument("--to", dest="stop", required=True, help="last value, with units")
+    curve.add_argument("--points", type=int, default=25, help="number of points (default 25)")
+    curve.add_argument("--by", choices=("pressure_gradient", "flow_rate"),
+                       default="pressure_gradient", help="which quantity the range is of")
+    curve.add_argument("--log", action="store_true", help="geometric spacing")
+    curve.add_argument("--out", help="results folder (default results/<case stem>-flow-curve/)")
     fit = sub.add_parser("fit", help="fit viscosity models to flow-curve data (CSV)")
     fit.add_argument("data", help="CSV with unit-labelled columns, e.g. 'shear_rate [1/s]'")
     fit.add_argument("--models", nargs="+", help="models to fit (default: all)")
@@ -165,6 +185,14 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "verify":
             from .verify import run_verify_command
             return run_verify_command(args.case, args.levels, args.ratio, args.out)
+        if args.command == "sweep":
+            from .sweep import run_sweep_command
+            return run_sweep_command(args.case, args.vary, args.log, args.workers,
+                                     args.scheduler, args.out, args.plot)
+        if args.command == "flow-curve":
+            from .sweep import run_flow_curve_command
+            return run_flow_curve_command(args.case, args.start, args.stop, args.points,
+                                          args.by, args.out, args.log)
         if args.command == "fit":
             from .fit import run_fit_command
             return run_fit_command(args.data, args.models, args.out)

@@ -224,7 +224,8 @@ def _rectangle(case: Case, cells: int) -> Domain:
     area = width * height
     return Domain("rectangle", "axial", basis, walls, "x, y", False, area,
                   4 * area / (2 * (width + height)), small, spec.degree, cells,
-                  {"width": width, "height": height, "nx": nx, "ny": ny})
+                  {"width": width, "height": height, "nx": nx, "ny": ny,
+                   "wall_facets": wall_facets})
 
 
 def _eccentric_annulus(case: Case, cells: int) -> Domain:
@@ -279,7 +280,8 @@ def _eccentric_annulus(case: Case, cells: int) -> Domain:
     area = math.pi * (ro ** 2 - ri ** 2)
     return Domain("annulus", "axial", basis, walls, "x, y", False, area, 2 * (ro - ri),
                   ro - ri, spec.degree, cells, {"eccentricity": g.eccentricity,
-                                               "offset": offset, "n_theta": n_theta})
+                                               "offset": offset, "n_theta": n_theta,
+                                               "wall_facets": wall_facets})
 
 
 def _section_domain(case: Case, mesh, wall_facets: dict[str, np.ndarray], cells=None) -> Domain:
@@ -301,4 +303,4 @@ def _section_domain(case: Case, mesh, wall_facets: dict[str, np.ndarray], cells=
     extent = mesh.p.max(axis=1) - mesh.p.min(axis=1)
     return Domain("mesh", "axial", basis, walls, "x, y", False, area, 4 * area / perimeter,
                   float(min(extent)), degree, mesh.t.shape[1],
-                  {"file": str(case.geometry.file)})
+                  {"file": str(case.geometry.file), "wall_facets": wall_facets})

@@ -8,13 +8,13 @@ superconvergent flux of the finite element solution, and not from a differentiat
 from __future__ import annotations
 
 import numpy as np
-from skfem import LinearForm, asm
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+from skfem import BilinearForm, FacetBasis, LinearForm, asm
 
+from .laminar import bingham_plastic_reynolds, laminar_limit, laminar_warning
 from .solver import Solution, invert_flow_curve
 
-#: Laminar limit on the Reynolds number of pipe-like passages (common practice; the
-#: transition begins between 2000 and 2300 for Newtonian pipe flow)
-LAMINAR_REYNOLDS = 2100.0
 #: Critical Taylor number of the narrow-gap Taylor-Couette flow with the inner cylinder
 #: turning (Taylor 1923; 1708 is the classical narrow-gap value, common practice as a limit)
 CRITICAL_TAYLOR = 1708.0
@@ -31,17 +31,40 @@ def _unyielded_area(v, w):
     return w.indicator * w.area_weight * v
 
 
+@BilinearForm
+def _mass(u, v, w):
+    return u * v
+
+
+@LinearForm
+def _load_of(v, w):
+    return w.value_at_points * v
+
+
+def project(basis, values_at_points) -> np.ndarray:
+    """L2 projection of a quadrature-point field onto the basis, by conjugate gradients
+    on the mass matrix (well conditioned; no factorisation at any size)."""
+    mass = asm(_mass, basis).tocsr()
+    load = asm(_load_of, basis, value_at_points=values_at_points)
+    diagonal = mass.diagonal()
+    result, _ = spla.cg(mass, load, rtol=1e-12, maxiter=500,
+                        M=sp.diags(1.0 / diagonal))
+    return result
+
+
 def fields(solution: Solution) -> dict[str, np.ndarray]:
     """Point fields at the dofs: velocity (axial) or angular speed, shear rate,
     apparent viscosity, shear stress magnitude; plus the coordinate ``x``."""
     basis = solution.domain.basis
     problem = solution.problem()
     x = basis.doflocs
-    gradient = np.array([basis.project(g) for g in basis.interpolate(solution.u).grad])
+    gradient = np.array([project(basis, g) for g in basis.interpolate(solution.u).grad])
     rate = np.sqrt(np.sum(gradient ** 2, axis=0)) * solution.domain.rate_factor(x)
     rate = np.maximum(rate, problem.rate_floor)
     viscosity = solution.model.viscosity(np.maximum(rate, 1e-300))
     out = {"x": x, "shear_rate": rate, "viscosity": viscosity, "shear_stress": viscosity * rate}
+    if solution.model.is_yield_stress:
+        out["unyielded"] = (out["shear_stress"] < solution.model.yield_stress).astype(float)
     if solution.domain.kind == "axial":
         out["velocity"] = solution.u
     else:
@@ -63,6 +86,65 @@ def wall_stresses(solution: Solution) -> dict[str, float]:
         if solution.domain.kind == "rotational":
             out[name] = abs(force) / (wall.perimeter * wall.position)
     return out
+
+
+def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
+    """Along each wall of a 2-D section: arc length ``s`` (m, along the chained wall
+    facets), points ``x``, ``y``, and the wall shear stress (Pa, on the wall in +z) and
+    shear rate (1/s) at the facet quadrature points."""
+    domain = solution.domain
+    mesh = domain.basis.mesh
+    out = {}
+    for name, wall in domain.walls.items():
+        facets = _chained(mesh, wall_facets_of(solution, name))
+        facet_basis = FacetBasis(mesh, domain.basis.elem, facets=facets)
+        gradient = facet_basis.interpolate(solution.u).grad
+        normal_derivative = np.sum(gradient * facet_basis.normals, axis=0)
+        rate = np.abs(normal_derivative)
+        viscosity = solution.model.viscosity(np.sqrt(np.sum(gradient ** 2, axis=0)
+                                                     + solution.rate_floor ** 2))
+        stress = -viscosity * normal_derivative
+        points = facet_basis.global_coordinates().value
+        lengths = facet_basis.dx.sum(axis=1)
+        start = np.concatenate([[0.0], np.cumsum(lengths)[:-1]])
+        # positions of the quadrature points along each facet, in proportion to weights
+        fraction = np.cumsum(facet_basis.dx, axis=1) - 0.5 * facet_basis.dx
+        s = start[:, None] + fraction
+        order = np.argsort(s.ravel(), kind="stable")
+        out[name] = {"s": s.ravel()[order], "x": points[0].ravel()[order],
+                     "y": points[1].ravel()[order], "shear_stress": stress.ravel()[order],
+                     "shear_rate": rate.ravel()[order], "weight": facet_basis.dx.ravel()[order]}
+    return out
+
+
+def wall_facets_of(solution: Solution, name: str) -> np.ndarray:
+    return solution.domain.extra["wall_facets"][name]
+
+
+def _chained(mesh, facets: np.ndarray) -> np.ndarray:
+    """The facets of a wall ordered head to tail (each open or closed chain in turn)."""
+    ends = mesh.facets[:, facets]
+    by_vertex: dict[int, list[int]] = {}
+    for k in range(facets.size):
+        for v in ends[:, k]:
+            by_vertex.setdefault(int(v), []).append(k)
+    unused = set(range(facets.size))
+    order = []
+    # start chains at vertices used once (open ends) before closed loops
+    starts = [v for v, ks in by_vertex.items() if len(ks) == 1] + list(by_vertex)
+    for v in starts:
+        ks = [k for k in by_vertex[v] if k in unused]
+        if not ks:
+            continue
+        k, vertex = ks[0], v
+        while k is not None:
+            unused.discard(k)
+            order.append(k)
+            a, b = ends[:, k]
+            vertex = int(b if a == vertex else a)
+            nxt = [j for j in by_vertex[vertex] if j in unused]
+            k = nxt[0] if nxt else None
+    return facets[np.array(order, dtype=np.int64)]
 
 
 def torque_per_length(solution: Solution) -> tuple[float, float]:
@@ -145,14 +227,24 @@ def summarise(solution: Solution) -> dict:
     stresses = wall_stresses(solution)
     perimeters = {n: w.perimeter for n, w in domain.walls.items()}
     total_perimeter = sum(perimeters.values())
-    rates = {n: invert_flow_curve(solution.model, abs(t)) if t else 0.0
-             for n, t in stresses.items()}
     mean_stress = sum(abs(stresses[n]) * perimeters[n] for n in stresses) / total_perimeter
+    if domain.dimension == 1:
+        rates = {n: invert_flow_curve(solution.model, abs(t)) if t else 0.0
+                 for n, t in stresses.items()}
+        largest_stress, largest_rate = max(abs(t) for t in stresses.values()), max(rates.values())
+    else:
+        # along the walls of a section: the mean per wall is the perimeter-weighted mean
+        # of the local rate; maxima come from the distribution
+        distributions = wall_distributions(solution)
+        rates = {n: float(np.sum(d["shear_rate"] * d["weight"]) / np.sum(d["weight"]))
+                 for n, d in distributions.items()}
+        largest_stress = max(float(np.max(np.abs(d["shear_stress"])))
+                             for d in distributions.values())
+        largest_rate = max(float(np.max(d["shear_rate"])) for d in distributions.values())
     mean_rate = sum(rates[n] * perimeters[n] for n in rates) / total_perimeter
-    out["wall_shear_stress"] = {"mean": mean_stress,
-                                "max": max(abs(t) for t in stresses.values()),
+    out["wall_shear_stress"] = {"mean": mean_stress, "max": largest_stress,
                                 "per_wall": stresses}
-    out["wall_shear_rate"] = {"mean": mean_rate, "max": max(rates.values()), "per_wall": rates}
+    out["wall_shear_rate"] = {"mean": mean_rate, "max": largest_rate, "per_wall": rates}
     problem = solution.problem()
     if domain.kind == "axial":
         flow_rate = problem.flow_rate(solution.u)
@@ -171,8 +263,9 @@ def summarise(solution: Solution) -> dict:
         })
         # steady axial momentum: the pressure force on the section balances the wall drag
         drag = sum(stresses[n] * perimeters[n] for n in stresses)
-        out["force_balance_error"] = abs(drag + solution.pressure_gradient * domain.area) / max(
-            abs(drag), abs(solution.pressure_gradient * domain.area), 1e-300)
+        discrete_area = float(problem.load.sum())
+        out["force_balance_error"] = abs(drag + solution.pressure_gradient * discrete_area) / max(
+            abs(drag), abs(solution.pressure_gradient * discrete_area), 1e-300)
         if case.fluid.density is not None and mean_velocity != 0:
             re, definition = reynolds_number(solution, mean_velocity, mean_rate,
                                              domain.hydraulic_diameter)
@@ -180,11 +273,19 @@ def summarise(solution: Solution) -> dict:
             out["reynolds_definition"] = definition
             out["fanning_friction_factor"] = mean_stress / (
                 0.5 * case.fluid.density * mean_velocity ** 2)
-            if re > LAMINAR_REYNOLDS:
-                warnings.append(
-                    f"Reynolds number {re:.4g} exceeds the laminar limit {LAMINAR_REYNOLDS:.0f} "
-                    "(common practice for pipes): the flow is likely transitional or turbulent "
-                    "and these laminar results do not hold")
+            critical, criterion = laminar_limit(solution.model, case.fluid.density,
+                                                domain.hydraulic_diameter)
+            compared = re
+            if solution.model.name == "bingham":
+                # Hanks' criterion is stated on the plastic Reynolds number rho V D / mu_p
+                compared = bingham_plastic_reynolds(case.fluid.density, mean_velocity,
+                                                    domain.hydraulic_diameter,
+                                                    solution.model.plastic_viscosity)
+                out["plastic_reynolds_number"] = compared
+            out["laminar_limit"] = {"reynolds_number": critical, "criterion": criterion}
+            warning = laminar_warning(compared, critical, criterion)
+            if warning:
+                warnings.append(warning)
     else:
         torque, imbalance = torque_per_length(solution)
         out["torque_per_length"] = torque
