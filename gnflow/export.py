@@ -19,7 +19,7 @@ from pathlib import Path
 import meshio
 import numpy as np
 
-from .post import fields
+from .post import fields, wall_distributions
 from .solver import Solution
 
 
@@ -89,6 +89,17 @@ def write_profile_csv(path: Path, solution: Solution) -> None:
         writer.writerows([[f"{v:.10g}" for v in row] for row in rows])
 
 
+def write_wall_csv(path: Path, solution: Solution) -> None:
+    """Wall shear stress and rate along every wall of a 2-D section."""
+    with path.open("w", newline="", encoding="utf-8") as handle:
+        writer = csv.writer(handle)
+        writer.writerow(["wall", "s [m]", "x [m]", "y [m]", "shear_stress [Pa]",
+                         "shear_rate [1/s]"])
+        for name, d in wall_distributions(solution).items():
+            for row in zip(d["s"], d["x"], d["y"], d["shear_stress"], d["shear_rate"]):
+                writer.writerow([name] + [f"{v:.10g}" for v in row])
+
+
 def field_mesh(solution: Solution) -> meshio.Mesh:
     """The solution as a meshio mesh with point data for open viewers."""
     basis = solution.domain.basis
@@ -99,10 +110,8 @@ def field_mesh(solution: Solution) -> meshio.Mesh:
     cells_by_degree = {(1, 1): "line", (1, 2): "line3", (2, 1): "triangle", (2, 2): "triangle6"}
     cell_type = cells_by_degree[(x.shape[0], solution.domain.degree)]
     element_dofs = basis.element_dofs.T
-    data = {"velocity": f["velocity"], "shear_rate": f["shear_rate"],
-            "viscosity": f["viscosity"], "shear_stress": f["shear_stress"]}
-    if "angular_speed" in f:
-        data["angular_speed"] = f["angular_speed"]
+    data = {name: f[name] for name in ("velocity", "shear_rate", "viscosity", "shear_stress",
+                                       "angular_speed", "unyielded") if name in f}
     return meshio.Mesh(points, [(cell_type, element_dofs)], point_data=data)
 
 
@@ -115,13 +124,19 @@ def write_outputs(solution: Solution, summary: dict, out_dir: Path) -> list[str]
         write_json(staging / "summary.json", summary)
         if solution.domain.dimension == 1:
             write_profile_csv(staging / "profile.csv", solution)
+        else:
+            write_wall_csv(staging / "wall_stress.csv", solution)
         if case.output.fields:
             mesh = field_mesh(solution)
             meshio.write(staging / "fields.vtu", mesh)
             # inline XML data keeps XDMF readable without HDF5 libraries
             meshio.write(staging / "fields.xdmf", mesh, data_format="XML")
         if case.output.plots:
-            plots.profile_plot(solution, staging / "profile.png")
+            if solution.domain.dimension == 1:
+                plots.profile_plot(solution, staging / "profile.png")
+            else:
+                plots.section_maps(solution, staging / "fields.png")
+                plots.wall_stress_plot(solution, staging / "wall_stress.png")
             plots.convergence_plot(solution, staging / "convergence.png")
         written = sorted(p.name for p in staging.iterdir())
     return written

@@ -201,7 +201,10 @@ def _section_walls(basis: Basis, wall_facets: dict[str, np.ndarray], speeds: dic
 
 
 def _moving_last(names, speeds) -> list[str]:
-    return sorted(names, key=lambda n: speeds.get(n, 0.0) != 0.0)
+    """Wall order for corner ownership: moving walls last (they own their corners, so a
+    lid keeps its speed up to the corner), otherwise by name, so that the same section
+    gives the same walls however it was built."""
+    return sorted(names, key=lambda n: (speeds.get(n, 0.0) != 0.0, n))
 
 
 def _rectangle(case: Case, cells: int) -> Domain:
