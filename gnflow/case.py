@@ -50,7 +50,10 @@ MODEL_KEYS: dict[str, dict[str, tuple[str, Any]]] = {
     "herschel-bulkley": {"yield_stress": ("stress", ...), "consistency": ("consistency", ...),
                          "flow_index": ("dimensionless", ...)},
 }
-FLUID_COMMON = ("model", "density", "regularisation", "fitted_rate_range")
+FLUID_COMMON = ("model", "density", "regularisation", "fitted_rate_range", "temperature",
+                "temperature_law", "activation_energy", "reference_temperature",
+                "sutherland_constant", "fitted_temperature_range")
+TEMPERATURE_LAWS = ("arrhenius", "sutherland")
 GEOMETRY_KEYS = {
     "slit": {"gap": "length"},
     "pipe": {"radius": "length"},
@@ -164,6 +167,9 @@ class FluidSpec:
     regularisation: str | None = None          # yield-stress models only
     regularisation_parameter: float | None = None  # None: chosen from the case's scales
     fitted_rate_range: tuple[float, float] | None = None
+    temperature: float | None = None           # K, the case's fluid temperature
+    temperature_law: dict | None = None        # the law and its constants, SI
+    fitted_temperature_range: tuple[float, float] | None = None
 
     @property
     def name(self) -> str:
@@ -284,6 +290,9 @@ class Case:
                                        or "auto"}
         if self.fluid.fitted_rate_range:
             fluid["fitted_rate_range"] = list(self.fluid.fitted_rate_range)
+        if self.fluid.temperature_law:
+            fluid["temperature"] = self.fluid.temperature
+            fluid["temperature_law"] = self.fluid.temperature_law
         geometry = {k: (str(v) if isinstance(v, Path) else v)
                     for k, v in self.geometry.__dict__.items()
                     if v is not None and not (k == "length_unit" and v == 1.0)}
@@ -373,13 +382,75 @@ def _parse_fluid(table: dict) -> FluidSpec:
         values["regularisation_parameter"] = parameter or 1.0
     rate_range = None
     if "fitted_rate_range" in table:
-        rate_range = _parse_rate_range(table["fitted_rate_range"])
+        rate_range = _parse_range(table["fitted_rate_range"], "fluid.fitted_rate_range", "rate",
+                                  '["0.1 1/s", "1000 1/s"]')
     try:
         model = rheology.MODELS[model_name](**values)
     except CaseError as err:
-        key = err.key if err.key.startswith("regularisation") else err.key
-        raise CaseError(f"fluid.{key}", message=f"fluid.{err}") from None
-    return FluidSpec(model, density, method, parameter, rate_range)
+        raise CaseError(f"fluid.{err.key}", message=f"fluid.{err}") from None
+    model, temperature, law, temperature_range = _parse_temperature(table, model)
+    return FluidSpec(model, density, method, parameter, rate_range, temperature, law,
+                     temperature_range)
+
+
+def _parse_temperature(table: dict, model):
+    """Apply a fluid card's temperature law at the case's temperature.
+
+    ``temperature_law = "arrhenius"``: every viscosity is shifted by
+    ``a_T = exp(E_a / R (1/T - 1/T_ref))`` (time-temperature superposition, see
+    :func:`gnflow.temperature.at_temperature`). ``"sutherland"`` (Newtonian gases): the
+    card's ``viscosity`` is the value at ``reference_temperature``.
+    """
+    from . import temperature as laws
+
+    where = "fluid"
+    temperature_range = None
+    if "fitted_temperature_range" in table:
+        temperature_range = _parse_range(table["fitted_temperature_range"],
+                                         "fluid.fitted_temperature_range", "temperature",
+                                         '["10 degC", "60 degC"]')
+    if "temperature_law" not in table:
+        for key in ("temperature", "activation_energy", "reference_temperature",
+                    "sutherland_constant"):
+            if key in table:
+                raise CaseError(f"fluid.{key}", message=(
+                    f"fluid.{key} needs fluid.temperature_law (\"arrhenius\" or "
+                    "\"sutherland\") to say how the viscosity depends on temperature"))
+        return model, None, None, temperature_range
+    law_name = _choice(table, "temperature_law", where, TEMPERATURE_LAWS)
+    reference = _dimensional(table, "reference_temperature", where, "temperature")
+    if not reference > 0:
+        raise CaseError("fluid.reference_temperature", table["reference_temperature"],
+                        "an absolute temperature above 0 K")
+    temperature = _dimensional(table, "temperature", where, "temperature", reference)
+    if not temperature > 0:
+        raise CaseError("fluid.temperature", table["temperature"],
+                        "an absolute temperature above 0 K")
+    if law_name == "arrhenius":
+        if "sutherland_constant" in table:
+            raise CaseError("fluid.sutherland_constant", message=(
+                "fluid.sutherland_constant belongs to temperature_law = \"sutherland\""))
+        energy = _dimensional(table, "activation_energy", where, "molar_energy")
+        shift = laws.Arrhenius(energy, reference).shift(temperature)
+        law = {"law": "arrhenius", "activation_energy": energy,
+               "reference_temperature": reference, "shift_factor": float(shift)}
+        model = laws.at_temperature(model, shift)
+    else:
+        if model.name != "newtonian":
+            raise CaseError("fluid.temperature_law", "sutherland",
+                            '"arrhenius" for a non-Newtonian fluid (Sutherland\'s law is for '
+                            "Newtonian gases)")
+        if "activation_energy" in table:
+            raise CaseError("fluid.activation_energy", message=(
+                "fluid.activation_energy belongs to temperature_law = \"arrhenius\""))
+        constant = check_positive("fluid.sutherland_constant", _dimensional(
+            table, "sutherland_constant", where, "temperature"))
+        sutherland = laws.Sutherland(model.viscosity_value, reference, constant)
+        law = {"law": "sutherland", "sutherland_constant": constant,
+               "reference_temperature": reference,
+               "shift_factor": float(sutherland.shift(temperature))}
+        model = rheology.Newtonian(float(sutherland.viscosity(temperature)))
+    return model, temperature, law, temperature_range
 
 
 def _parse_regularisation(table) -> tuple[str, float | None]:
@@ -400,13 +471,13 @@ def _parse_regularisation(table) -> tuple[str, float | None]:
     return method, check_positive(f"{where}.{key}", value)
 
 
-def _parse_rate_range(value) -> tuple[float, float]:
-    key = "fluid.fitted_rate_range"
+def _parse_range(value, key: str, dimension: str, example: str) -> tuple[float, float]:
+    what = dimension.replace("_", " ")
     if not isinstance(value, list) or len(value) != 2:
-        raise CaseError(key, value, 'two shear rates, e.g. ["0.1 1/s", "1000 1/s"]')
-    low, high = (quantity(v, "rate", key) for v in value)
+        raise CaseError(key, value, f"two values of {what}, e.g. {example}")
+    low, high = (quantity(v, dimension, key) for v in value)
     if not 0 < low < high:
-        raise CaseError(key, value, "0 < lowest rate < highest rate")
+        raise CaseError(key, value, f"0 < lowest {what} < highest {what}")
     return (low, high)
 
 

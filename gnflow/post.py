@@ -331,6 +331,16 @@ def summarise(solution: Solution) -> dict:
             warnings.append(f"the mean wall shear rate {out['wall_shear_rate']['mean']:.4g} 1/s "
                             f"is below the lowest rate of the fluid card's data "
                             f"({rate_range[0]:.4g} 1/s): the model is extrapolated")
+    temperature_range = case.fluid.fitted_temperature_range
+    if temperature_range and case.fluid.temperature is not None and not (
+            temperature_range[0] <= case.fluid.temperature <= temperature_range[1]):
+        warnings.append(f"the case temperature {case.fluid.temperature - 273.15:.4g} degC lies "
+                        f"outside the fluid card's data ({temperature_range[0] - 273.15:.4g} to "
+                        f"{temperature_range[1] - 273.15:.4g} degC): the temperature law is "
+                        "extrapolated")
+    if case.fluid.temperature_law:
+        out["temperature"] = case.fluid.temperature
+        out["temperature_law"] = case.fluid.temperature_law
     if not solution.converged:
         warnings.append(solution.message)
     out["warnings"] = warnings
