@@ -298,10 +298,26 @@ def characteristic_rate(case: Case, domain: Domain, model: rheology.Model) -> fl
             rates.append((max(speeds) - min(speeds)) / L)
         if d.pressure_gradient:
             wall_stress = abs(d.pressure_gradient) * L / 2
-            rates.append(invert_flow_curve(_viscous_part(model), wall_stress))
+            yield_stress = model.yield_stress if model.is_yield_stress else 0.0
+            if wall_stress > 1.001 * yield_stress:
+                # the rate the yielded fluid has at the wall
+                rates.append(invert_flow_curve(_viscous_part(model), wall_stress - yield_stress))
+            else:
+                # it may not yield at all: a creep scale well below the viscous one
+                rates.append(1e-3 * invert_flow_curve(_viscous_part(model), wall_stress))
         if d.flow_rate is not None:
             rates.append(6 * abs(d.flow_rate) / domain.area / L)
     return max(max(rates), 1e-300)
+
+
+def expected_to_yield(case: Case, domain: Domain, model: rheology.Model) -> bool:
+    """Whether the drive's wall-stress scale exceeds the yield stress (always true for
+    flows driven by wall motion or a flow rate, which must yield somewhere)."""
+    if not model.is_yield_stress or domain.kind != "axial" or not case.drive.pressure_gradient:
+        return True
+    if case.drive.wall_speed and any(case.drive.wall_speed.values()):
+        return True
+    return abs(case.drive.pressure_gradient) * domain.length_scale / 2 > model.yield_stress
 
 
 def _viscous_part(model: rheology.Model) -> rheology.Model:
@@ -531,6 +547,7 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None) ->
     model = case.fluid.model
     history: list[Iteration] = []
     rate = characteristic_rate(case, domain, model)
+    yields = expected_to_yield(case, domain, model)
     regularisation = None
     yield_stress = model.is_yield_stress
     user_parameter = case.fluid.regularisation_parameter
@@ -561,31 +578,58 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None) ->
     converged = False
     stages = 0
     final_stage = not yield_stress
+    step = 10.0          # how much sharper each continuation stage makes the regularisation
+    last_good = None     # (u, gradient, model) of the last stage that converged
+    papanastasiou = yield_stress and model.regularisation == "papanastasiou"
     while True:
-        # intermediate stages of the regularisation continuation need only be rough
+        # intermediate stages of the regularisation continuation need only be rough, and
+        # get a bounded share of the iterations so that a hard stage can be retried
         tolerance = spec.tolerance if final_stage else max(spec.tolerance, 1e-6)
-        u, gradient, converged, used = iterate(problem, u, gradient, target, tolerance,
-                                               budget - used, history, used)
-        if not yield_stress or not converged or used >= budget:
+        allowance = budget - used if final_stage else min(budget - used, 40)
+        try:
+            u_new, g_new, converged, used = iterate(problem, u, gradient, target, tolerance,
+                                                    allowance, history, used)
+        except (RuntimeError, np.linalg.LinAlgError, ValueError) as err:
+            # a singular or non-finite system: report it as a failure to converge
+            converged, u_new, g_new = False, u, gradient
+            failure = f"the linear solver failed ({err})"
+            history.append(Iteration(used, spec.method, math.inf, 0.0, gradient))
+        else:
+            failure = None
+        if converged:
+            u, gradient = u_new, g_new
+        if not yield_stress or used >= budget:
             break
-        largest = float(np.max(problem.shear_rate(u)))
-        wanted = user_parameter if user_parameter is not None else \
-            default_regularisation(case.fluid.model, max(largest, 1e-300))
-        current = model.regularisation_parameter
-        papanastasiou = model.regularisation == "papanastasiou"
-        done = (current >= wanted * (1 - 1e-9)) if papanastasiou else \
-            (current <= wanted * (1 + 1e-9))
-        if done:
-            if final_stage:
+        if not converged:
+            if last_good is None or step < 1.2:
                 break
-            final_stage = True
-            continue
+            # the stage was too big a jump: go back and sharpen more gently
+            u, gradient, model = last_good
+            step = math.sqrt(step)
+            final_stage = False
+        else:
+            last_good = (u, gradient, model)
+            largest = float(np.max(problem.shear_rate(u)))
+            # a fluid that barely yields (or not at all) creeps with vanishing rates: the
+            # regularisation is never made sharper than the case's own rate scale needs
+            scale = max(largest, (1e-3 if yields else 1.0) * rate)
+            wanted = user_parameter if user_parameter is not None else \
+                default_regularisation(case.fluid.model, scale)
+            current = model.regularisation_parameter
+            done = (current >= wanted * (1 - 1e-9)) if papanastasiou else \
+                (current <= wanted * (1 + 1e-9))
+            if done:
+                if final_stage:
+                    break
+                final_stage = True
+                continue
         stages += 1
-        factor = 10.0 if papanastasiou else 0.1
-        following = min(current * factor, wanted) if papanastasiou else \
-            max(current * factor, wanted)
+        current = model.regularisation_parameter
+        following = min(current * step, wanted) if papanastasiou else \
+            max(current / step, wanted)
         model = model.with_regularisation(following)
         problem.model = model
+    problem.model = model
     if yield_stress:
         estimate = _regularisation_error(problem, u, gradient, target, spec, case) \
             if converged else None
@@ -603,6 +647,9 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None) ->
     converged = converged and residual <= spec.tolerance
     if converged:
         message = f"converged in {used} iterations (relative residual {residual:.2e})"
+    elif failure:
+        message = (f"not converged: {failure} after {used} iterations; last relative "
+                   f"residual {residual:.2e}")
     else:
         message = (f"not converged: {spec.method} reached {used} of {spec.max_iterations} "
                    f"iterations with relative residual {residual:.2e} "
