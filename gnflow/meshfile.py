@@ -8,6 +8,8 @@ case's ``geometry.length_unit``.
 
 from __future__ import annotations
 
+import contextlib
+import io
 from pathlib import Path
 
 import numpy as np
@@ -26,10 +28,14 @@ def read_section(path: Path, length_unit: float = 1.0):
     """Return ``(mesh, {wall name: boundary facet indices})`` for a mesh file."""
     import meshio
 
+    noise = io.StringIO()
     try:
-        data = meshio.read(path)
-    except Exception as err:  # meshio raises many types for files it cannot read
-        reason = str(err).splitlines()[0][:120] if str(err) else type(err).__name__
+        # meshio prints its own complaints and, for some files, exits: keep both contained
+        with contextlib.redirect_stdout(noise), contextlib.redirect_stderr(noise):
+            data = meshio.read(path)
+    except (Exception, SystemExit) as err:  # meshio raises many types for unreadable files
+        text = str(err) if str(err) and not isinstance(err, SystemExit) else noise.getvalue()
+        reason = text.strip().splitlines()[0][:120] if text.strip() else type(err).__name__
         raise _fail(path, f"cannot read the mesh ({reason}); expected a 2-D triangle mesh "
                     "in a format meshio reads (.msh, .vtu, .xdmf, ...)") from None
     points = np.asarray(data.points, dtype=float)

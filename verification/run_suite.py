@@ -5,7 +5,10 @@
 Every case in verification/cases/ is run at P1 and P2 on six meshes (8 to 256 cells,
 ratio 2) through :func:`gnflow.verify.run_verification`; the regularisation study solves
 a Bingham pipe and a Herschel-Bulkley slit for growing Papanastasiou exponents and
-compares them with the exact (unregularised) solutions. Takes well under a minute.
+compares them with the exact (unregularised) solutions. The 2-D sections (rectangles
+and eccentric annuli) are run at P1 and P2 from 4 cells across (ratio 2): Newtonian ones
+against the flow-rate series of gnflow.analytic, the others by the three-grid GCI. Takes
+about a minute.
 """
 
 from __future__ import annotations
@@ -89,6 +92,21 @@ SECTIONS = {
     ]),
 }
 NO_REFERENCE = ["herschel_bulkley_slit_flow_rate"]
+
+#: 2-D sections: 4 cells across the gap or the smaller side, refined by RATIO; the
+#: cell size is (area / triangles)^(1/2) (see gnflow.verify)
+LEVELS_2D_REFERENCE, LEVELS_2D_GCI = 5, 4
+FLOW_RATE_TOLERANCE = 0.25
+SECTIONS_2D_REFERENCE = [
+    ("newtonian_eccentric_annulus", "curved walls: P1 on chords, P2 isoparametric"),
+    ("newtonian_rectangle", "straight walls; a corner term r^2 ln r (see below)"),
+]
+SECTIONS_2D_GCI = [
+    ("power_law_rectangle_n05", "infinite viscosity where the rate vanishes: the centre "
+                                "and the four corners"),
+    ("herschel_bulkley_eccentric_annulus", "fixed exponent 0.2 s: discretisation error only; "
+                                           "a steep layer at the yield surface"),
+]
 
 
 def load(stem: str, degree: int) -> Case:
@@ -269,6 +287,95 @@ def gci_section(lines):
     lines += [""] + notes + [""]
 
 
+def sections_2d(lines, summary_2d):
+    """2-D rectangles and eccentric annuli: flow-rate orders against the series, or GCI."""
+    lines += ["## 2-D sections and curved walls", "",
+              "Rectangles (cells across the smaller side) and eccentric annuli (cells across "
+              "the gap, the angular count rounded to keep the cells near square) from 4 cells "
+              "at ratio 2. The cell size is the representative `h = (area / triangles)^(1/2)` "
+              "of Celik et al. (2008), counted on the triangles actually meshed. There is no "
+              "velocity-field reference in 2-D, so the Newtonian cases are compared on the "
+              "flow rate alone, with the Fourier series of the rectangular duct and the "
+              "bipolar-coordinate series of the eccentric annulus (`gnflow.analytic`); the "
+              "flow rate is a smooth functional and converges as h^(2k) for P_k when the "
+              "solution and the walls are smooth enough. 'agrees' means within "
+              f"+-{FLOW_RATE_TOLERANCE}. The concentric annulus (1-D, section above) and the "
+              "eccentric one together cover curved walls.", "",
+              "| case | P | levels (cells across) | flow-rate order | expected | finest rel. "
+              "error | orders level by level | why |", "|---|---|---|---|---|---|---|---|"]
+    notes = []
+    for stem, why in SECTIONS_2D_REFERENCE:
+        for degree in (1, 2):
+            result = run_verification(load(stem, degree), LEVELS_2D_REFERENCE, RATIO)
+            figure = FIGURES / f"{stem}-p{degree}.png"
+            convergence_plot(result, figure)
+            p, expected = result.value_orders[-1], 2.0 * degree
+            ok = abs(p - expected) <= FLOW_RATE_TOLERANCE
+            summary_2d.append(ok)
+            cells = [lv.cells for lv in result.levels]
+            history = ", ".join(fmt(x) for x in result.value_orders[1:])
+            lines.append(f"| [{stem}](cases/{stem}.toml) | {degree} | {cells[0]}-{cells[-1]} "
+                         f"| {fmt(p)} | {expected:.0f} | {result.levels[-1].value_error:.2e} "
+                         f"| {history} | {why} |")
+            notes.append((stem, degree, p, expected, ok, figure.name))
+    lines.append("")
+    for stem, degree, p, expected, ok, figure in notes:
+        verdict = (f"agrees with the expected {expected:.0f}" if ok else
+                   f"differs from the expected {expected:.0f} by more than "
+                   f"{FLOW_RATE_TOLERANCE}")
+        if stem == "newtonian_eccentric_annulus" and degree == 1:
+            why = ("straight-sided P1 triangles put the walls on chords, an O(h^2) change of "
+                   "the section, which is the order of P1's own flow-rate error, so P1 is "
+                   "not held back")
+        elif stem == "newtonian_eccentric_annulus":
+            why = ("with the edge midpoints on the circles the wall error is O(h^3) in "
+                   "position and the flow-rate error keeps the h^4 of P2; straight chords "
+                   "would cap it at h^2")
+        elif degree == 1:
+            why = "the corners do not limit P1"
+        else:
+            why = ("the right-angle corners carry a term r^2 ln r (the Newtonian duct "
+                   "solution is only in H^(3 - eps) there; derived from the corner "
+                   "expansion, not from a source), so P2 approaches 4 slowly from below "
+                   "with a logarithmic factor")
+        notes_line = (f"* **{stem}, P{degree}**: flow-rate order {fmt(p)}, which {verdict}: "
+                      f"{why}. [plot](figures/{figure})")
+        lines.append(notes_line)
+    lines += ["", "Without a reference: three-grid GCI on the flow rate at the set pressure "
+                  "gradient (Celik et al. 2008, Fs = 1.25), "
+                  f"{LEVELS_2D_GCI} levels from 4 cells across.", "",
+              "| case | P | apparent order | extrapolated flow rate [m^3/s] | finest flow rate "
+              "| GCI | why |", "|---|---|---|---|---|---|---|"]
+    notes = []
+    for stem, why in SECTIONS_2D_GCI:
+        for degree in (1, 2):
+            result = run_verification(load(stem, degree), LEVELS_2D_GCI, RATIO)
+            convergence_plot(result, FIGURES / f"{stem}-p{degree}.png")
+            g = result.finest_gci
+            lines.append(f"| [{stem}](cases/{stem}.toml) | {degree} | {fmt(g.apparent_order)} "
+                         f"| {g.extrapolated_value:.8g} | {result.levels[-1].value:.8g} | "
+                         f"{100 * g.gci_fine:.2g} % | {why} |")
+            notes.append(f"* **{stem}, P{degree}**: apparent order {fmt(g.apparent_order)} "
+                         f"against {2 * degree} for a smooth solution; the finest "
+                         f"flow rate is within {100 * g.gci_fine:.2g} % of the mesh-converged "
+                         f"value. " + _gci_2d_comment(stem, degree, g.apparent_order)
+                         + f" [plot](figures/{stem}-p{degree}.png)")
+    lines += [""] + notes + [""]
+
+
+def _gci_2d_comment(stem, degree, order) -> str:
+    if not np.isfinite(order):
+        return "No apparent order: the levels do not converge monotonically."
+    shortfall = 2 * degree - order
+    if stem.startswith("power_law"):
+        return (f"The shortfall from the formal order ({shortfall:.2f}) is likely the "
+                "limited regularity where the shear rate vanishes, as in the 1-D power-law "
+                "cases above; measured, not derived for this section.")
+    return ("With the exponent fixed the regularised model is smooth; the remaining "
+            f"shortfall ({shortfall:.2f}) is likely the steep layer at the yield surface, "
+            "not fully resolved on the coarser levels (not tested separately here).")
+
+
 def main() -> int:
     started = time.perf_counter()
     FIGURES.mkdir(exist_ok=True)
@@ -304,9 +411,13 @@ def main() -> int:
                 "cases, measured, not derived here.", ""]
     regularisation_study(lines)
     gci_section(lines)
+    summary_2d = []
+    sections_2d(lines, summary_2d)
     agreed = sum(1 for row in summary if row[-1])
     lines.insert(2, f"**Summary: {agreed} of {len(summary)} case/degree pairs agree with "
-                    f"their expected L2 and H1 orders.** Suite time "
+                    f"their expected L2 and H1 orders (1-D); {sum(summary_2d)} of "
+                    f"{len(summary_2d)} 2-D pairs agree with their expected flow-rate "
+                    f"order.** Suite time "
                     f"{time.perf_counter() - started:.0f} s.\n")
     REPORT.write_text("\n".join(lines), encoding="utf-8")
     print(f"wrote {REPORT} and {len(list(FIGURES.glob('*.png')))} figures "
