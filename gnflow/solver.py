@@ -310,6 +310,12 @@ def characteristic_rate(case: Case, domain: Domain, model: rheology.Model) -> fl
     return max(max(rates), 1e-300)
 
 
+def _statically_determinate(case: Case, domain: Domain) -> bool:
+    """Whether the stress field follows from the pressure gradient alone."""
+    return (domain.shape in ("slit", "pipe") and case.drive.pressure_gradient is not None
+            and not any(case.drive.wall_speed.values()))
+
+
 def expected_to_yield(case: Case, domain: Domain, model: rheology.Model) -> bool:
     """Whether the drive's wall-stress scale exceeds the yield stress (always true for
     flows driven by wall motion or a flow rate, which must yield somewhere)."""
@@ -439,8 +445,9 @@ def _line_search(problem: _Problem, u, gradient, du, d_gradient) -> float:
     return t
 
 
-def _picard_step(problem: _Problem, u, gradient, target_rate):
-    A = problem.frozen(u)
+def _picard_step(problem: _Problem, u, gradient, target_rate, A=None):
+    """Solve with the viscosity frozen at ``u`` (or with the operator ``A``)."""
+    A = problem.frozen(u) if A is None else A
     base = problem.boundary_values()
     problem.linear.prepare(problem.reduced(A))
     guess = u[problem.free] if problem.linear.method == "amg" else None
@@ -482,7 +489,36 @@ def _initial_state(problem: _Problem, case: Case, model: rheology.Model, rate: f
     gradient = case.drive.pressure_gradient or 0.0
     u, gradient = _picard_step(newtonian, newtonian.boundary_values(), gradient,
                                case.drive.flow_rate)
-    return u, gradient
+    if problem.domain.kind != "axial" or model.name == "newtonian":
+        return u, gradient
+    # The Newtonian stress field is the exact one wherever statics fixes the stress (slit
+    # and pipe without moving walls) and close to it elsewhere; the viscosity the model
+    # has at that stress, point by point, gives a start far closer than any constant.
+    rate_n = newtonian.shear_rate(u)
+    stress = reference.viscosity_value * rate_n
+    viscosity = model.viscosity(_rates_at_stress(model, stress, np.maximum(rate_n, 1e-300)))
+    if not np.all(np.isfinite(viscosity)) or not np.all(viscosity > 0):
+        return u, gradient
+    A = asm(axial_momentum, problem.domain.basis,
+            coefficient=problem.area_weight * problem.rate_factor ** 2 * viscosity).tocsr()
+    return _picard_step(problem, u, gradient, case.drive.flow_rate, A)
+
+
+def _rates_at_stress(model: rheology.Model, stress, start) -> np.ndarray:
+    """Shear rates at which the model's stress equals ``stress`` (array), by a
+    safeguarded Newton iteration on log(rate), vectorised; a few digits suffice here."""
+    target = np.log(np.maximum(stress, 1e-300))
+    log_rate = np.log(start)
+    with np.errstate(all="ignore"):
+        for _ in range(30):
+            rate = np.exp(log_rate)
+            tau = model.stress(rate)
+            slope = model.stress_derivative(rate) * rate / np.maximum(tau, 1e-300)
+            step = (np.log(np.maximum(tau, 1e-300)) - target) / np.maximum(slope, 1e-3)
+            log_rate = log_rate - np.clip(step, -5.0, 5.0)
+            if np.max(np.abs(step)) < 1e-6:
+                break
+    return np.exp(np.clip(log_rate, -690, 690))
 
 
 #: 2-D structured sections with more unknowns than this are solved first on a mesh half
@@ -552,9 +588,12 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None) ->
     yield_stress = model.is_yield_stress
     user_parameter = case.fluid.regularisation_parameter
     if yield_stress:
-        # start soft: a sharply regularised yield stress is a poor place to start Newton
-        start = default_regularisation(model, rate) * (1e-3 if model.regularisation ==
-                                                        "papanastasiou" else 1e3)
+        # Where statics fixes the stress (slit, pipe, no moving walls) the stress-
+        # consistent start is already close for any sharpness: start at the target.
+        # Elsewhere start soft, since a sharp yield stress is a poor place to start Newton.
+        softening = 1.0 if _statically_determinate(case, domain) else 1e-3
+        start = default_regularisation(model, rate) * (softening if model.regularisation ==
+                                                       "papanastasiou" else 1 / softening)
         if user_parameter is not None:
             start = min(start, user_parameter) if model.regularisation == "papanastasiou" \
                 else max(start, user_parameter)

@@ -133,3 +133,112 @@ def test_verify_command_default_folder_and_bad_options(tmp_path, monkeypatch, ca
     assert main(["verify", str(path), "--levels", "12"]) == 2
     assert main(["verify", str(path), "--ratio", "0.5"]) == 2
     assert "--ratio" in capsys.readouterr().err
+
+
+# --------------------------------------------------------------------------- 2-D sections
+# Check values: twice the element degree for the flow rate, a smooth functional (P2: 4),
+# against gnflow.analytic.eccentric_annulus_newtonian_flow_rate (bipolar series, Piercy,
+# Hooper & Winny 1933); the Celik et al. (2008) GCI where there is no reference.
+
+def test_eccentric_annulus_p2_flow_rate_order():
+    """Isoparametric P2 keeps the h^4 flow-rate order on curved walls; no field norms."""
+    case = _case({"model": "newtonian", "viscosity": 0.2},
+                 {"shape": "annulus", "inner_radius": 0.01, "outer_radius": 0.03,
+                  "eccentricity": 0.5}, {"pressure_gradient": -100.0}, cells=4, degree=2)
+    result = run_verification(case, levels=3)
+    assert result.has_reference and [lv.cells for lv in result.levels] == [4, 8, 16]
+    assert result.value_orders[-1] > 3.5
+    assert all(lv.l2_error is None and lv.h1_error is None for lv in result.levels)
+    # h is the representative (area / triangles)^(1/2) of the triangles meshed
+    area = np.pi * (0.03 ** 2 - 0.01 ** 2)
+    assert result.levels[0].h == pytest.approx(np.sqrt(area / 200))
+
+
+POWER_LAW_RECTANGLE = """title = "power law in a duct"
+[fluid]
+model = "power-law"
+consistency = "1 Pa*s^0.5"
+flow_index = 0.5
+[geometry]
+shape = "rectangle"
+width = "20 mm"
+height = "10 mm"
+[drive]
+pressure_gradient = "-2 kPa/m"
+[mesh]
+cells = 4
+degree = 1
+"""
+
+
+def test_verify_command_gci_on_a_2d_power_law_rectangle(tmp_path, capsys):
+    path = tmp_path / "duct.toml"
+    path.write_text(POWER_LAW_RECTANGLE, encoding="utf-8")
+    out = tmp_path / "out"
+    assert main(["verify", str(path), "--levels", "4", "--out", str(out)]) == 0
+    printed = capsys.readouterr().out
+    assert "GCI" in printed and "Celik et al. 2008" in printed
+    with open(out / "convergence.csv", newline="") as handle:
+        rows = list(csv.DictReader(handle))
+    assert [r["cells"] for r in rows] == ["4", "8", "16", "32"]
+    assert "l2_error" not in rows[0] and rows[1]["gci_fine"] == ""
+    assert float(rows[3]["apparent_order"]) == pytest.approx(2.0, abs=0.2)
+    finest, extrapolated = float(rows[3]["flow_rate"]), float(rows[3]["extrapolated_flow_rate"])
+    assert abs(extrapolated - finest) <= float(rows[3]["gci_fine"]) * finest
+
+
+def _write_mesh(path, width, height, nx, ny, curved=False):
+    """A rectangle of linear (or 6-node) triangles with the wall group "wall"."""
+    import meshio
+    from skfem import MeshTri, MeshTri2
+    mesh = MeshTri.init_tensor(np.linspace(0, width, nx + 1), np.linspace(0, height, ny + 1))
+    boundary = mesh.facets[:, mesh.boundary_facets()]
+    if curved:
+        quadratic = MeshTri2.from_mesh(mesh)
+        points, triangles = quadratic.doflocs, quadratic.dofs.element_dofs
+        mids = mesh.nvertices + mesh.boundary_facets()
+        cells = [("triangle6", triangles.T), ("line3", np.vstack([boundary, mids]).T)]
+    else:
+        points, cells = mesh.p, [("triangle", mesh.t.T), ("line", boundary.T)]
+    out = meshio.Mesh(np.column_stack([points.T, np.zeros(points.shape[1])]), cells,
+                      cell_data={"gmsh:physical": [np.full(len(c[1]), t) for c, t in
+                                                   zip(cells, (10, 1))],
+                                 "gmsh:geometrical": [np.full(len(c[1]), t) for c, t in
+                                                      zip(cells, (10, 1))]},
+                      field_data={"wall": np.array([1, 1]), "fluid": np.array([10, 2])})
+    meshio.write(path, out, file_format="gmsh22", binary=False)
+
+
+def test_mesh_file_study_refines_linear_triangles(tmp_path):
+    """Each level splits every triangle in four; the walls follow their parent edges, and
+    the flow rate converges (P1, h^2) to the Fourier series of the duct."""
+    from gnflow import analytic
+    _write_mesh(tmp_path / "duct.msh", 0.02, 0.01, 4, 2)
+    (tmp_path / "case.toml").write_text("")
+    case = Case.from_dict({"fluid": {"model": "newtonian", "viscosity": 0.5},
+                           "geometry": {"shape": "mesh", "file": "duct.msh"},
+                           "drive": {"pressure_gradient": -2000.0},
+                           "mesh": {"degree": 1}}, source=tmp_path / "case.toml")
+    result = run_verification(case, levels=4)
+    assert [lv.cells for lv in result.levels] == [16, 64, 256, 1024]
+    assert not result.has_reference
+    gci = result.finest_gci
+    assert gci.apparent_order == pytest.approx(2.0, abs=0.15)
+    exact = analytic.rectangle_newtonian_flow_rate(0.02, 0.01, 0.5, -2000.0)
+    finest = result.levels[-1].value
+    # Richardson extrapolation removes most of the finest error (7e-3 here)
+    assert abs(gci.extrapolated_value / exact - 1) < 0.1 * abs(finest / exact - 1)
+    with pytest.raises(CaseError, match="--ratio"):
+        run_verification(case, levels=3, ratio=3.0)
+
+
+def test_mesh_file_of_curved_triangles_cannot_be_refined(tmp_path, capsys):
+    _write_mesh(tmp_path / "curved.msh", 0.02, 0.01, 4, 2, curved=True)
+    path = tmp_path / "curved.toml"
+    path.write_text('title = "curved file"\n[fluid]\nmodel = "newtonian"\nviscosity = 1.0\n'
+                    '[geometry]\nshape = "mesh"\nfile = "curved.msh"\n'
+                    '[drive]\npressure_gradient = -100.0\n', encoding="utf-8")
+    assert main(["verify", str(path), "--levels", "3", "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err
+    assert "geometry.shape" in err and "fixes the mesh" in err
+    assert not (tmp_path / "o").exists()
