@@ -74,9 +74,9 @@ def peak_mib() -> float:
 def run_newton(cells: int, model: str, linear_solver: str) -> dict:
     from gnflow import solve
     case = make_case(cells, model, linear_solver)
-    start = time.perf_counter()
+    start, cpu = time.perf_counter(), time.process_time()
     solution = solve(case)
-    seconds = time.perf_counter() - start
+    seconds, cpu = time.perf_counter() - start, time.process_time() - cpu
     levels = []
     coarse = solution.coarse
     while coarse is not None:
@@ -85,7 +85,7 @@ def run_newton(cells: int, model: str, linear_solver: str) -> dict:
     return {"kind": "newton", "cells": cells, "model": model, "solver": linear_solver,
             "dofs": int(solution.domain.dofs), "iterations": solution.iterations,
             "coarse_iterations": levels, "converged": solution.converged,
-            "residual": solution.residual, "seconds": seconds,
+            "residual": solution.residual, "seconds": seconds, "cpu_seconds": cpu,
             "linear": solution.linear_solver, "flow_rate": solution.problem().flow_rate(
                 solution.u), "peak_mib": peak_mib()}
 
@@ -107,7 +107,7 @@ def run_picard(cells: int, model: str, seconds_cap: float, iteration_cap: int) -
     fluid_model = case.fluid.model
     if fluid_model.is_yield_stress:
         fluid_model = solve(case).model
-    start = time.perf_counter()
+    start, cpu = time.perf_counter(), time.process_time()
     domain = build_domain(case, cells)
     rate = characteristic_rate(case, domain, case.fluid.model)
     problem = _Problem(domain, fluid_model)
@@ -134,11 +134,12 @@ def run_picard(cells: int, model: str, seconds_cap: float, iteration_cap: int) -
         u = picard_solve(problem, u)
         iterations += 1
         residual = problem.relative_residual(u, G)
-    seconds = time.perf_counter() - start
+    seconds, cpu = time.perf_counter() - start, time.process_time() - cpu
     return {"kind": "picard", "cells": cells, "model": model, "solver": "spsolve",
             "dofs": int(domain.dofs), "iterations": iterations, "coarse_iterations": [],
             "converged": not capped, "capped": capped, "residual": residual,
-            "seconds": seconds, "flow_rate": problem.flow_rate(u), "peak_mib": peak_mib()}
+            "seconds": seconds, "cpu_seconds": cpu, "flow_rate": problem.flow_rate(u),
+            "peak_mib": peak_mib()}
 
 
 # --------------------------------------------------------------------------- driver
@@ -180,13 +181,14 @@ def fmt_row(result: dict, newtonian: dict | None, picard: dict | None) -> str:
         ratio_b = f">={picard['seconds'] / result['seconds']:.1f}"
     solver = result["linear"]["method"] if result["kind"] == "newton" else result["solver"]
     flag = "" if result["converged"] else " (NOT converged)"
+    cpu = f"{result['cpu_seconds']:.2f}" if "cpu_seconds" in result else "-"
     return (f"{dofs:>9,d} {name:16s} {solver:8s} {result['iterations']:>4d} {coarse:>9s} "
             f"{result['seconds']:8.2f} {result['peak_mib']:8.0f} {ratio_a:>6s} {ratio_b:>8s}"
-            f"{flag}")
+            f"{cpu:>8s}{flag}")
 
 
 HEADER = (f"{'unknowns':>9s} {'model':16s} {'linear':8s} {'iter':>4s} {'coarse':>9s} "
-          f"{'seconds':>8s} {'peak MiB':>8s} {'(a)':>6s} {'(b)':>8s}")
+          f"{'seconds':>8s} {'peak MiB':>8s} {'(a)':>6s} {'(b)':>8s} {'cpu s':>8s}")
 
 
 def main():
@@ -230,7 +232,8 @@ def main():
     print("iter: Newton iterations on the fine mesh; coarse: on each coarser level of the "
           "grid sequencing (finest first)")
     print("(a): time / Newtonian time, same mesh and linear solver; (b): at 160k unknowns, "
-          "Picard+spsolve time / this time")
+          "Picard+spsolve time / this time (wall-clock ratios); cpu s: process CPU time of the "
+          "solve (all threads)")
     print(HEADER, flush=True)
     rows = []
     for cells in sizes:

@@ -270,13 +270,7 @@ class Case:
     def with_value(self, dotted_key: str, value) -> "Case":
         """A new case with one dotted key (e.g. ``"fluid.flow_index"``) set to ``value``."""
         mapping = copy.deepcopy(self.raw)
-        parts = dotted_key.split(".")
-        table = mapping
-        for part in parts[:-1]:
-            table = table.setdefault(part, {})
-            if not isinstance(table, dict):
-                raise CaseError(dotted_key, value, "a key inside a table")
-        table[parts[-1]] = value
+        assign(mapping, dotted_key, value)
         return Case.from_dict(mapping, self.source)
 
     def to_si(self) -> dict:
@@ -304,6 +298,24 @@ class Case:
         return {"title": self.title, "fluid": fluid, "geometry": geometry, "drive": drive,
                 "mesh": dict(self.mesh.__dict__), "solver": dict(self.solver.__dict__),
                 "output": dict(self.output.__dict__)}
+
+
+def assign(mapping: dict, dotted_key: str, value) -> None:
+    """Set a dotted key in a case mapping, in place.
+
+    Setting one of the exclusive drives (``drive.pressure_gradient``,
+    ``drive.flow_rate``) removes the other, so a study can drive a case either way.
+    """
+    parts = dotted_key.split(".")
+    table = mapping
+    for part in parts[:-1]:
+        table = table.setdefault(part, {})
+        if not isinstance(table, dict):
+            raise CaseError(dotted_key, value, "a key inside a table")
+    table[parts[-1]] = value
+    exclusive = {"drive.pressure_gradient": "flow_rate", "drive.flow_rate": "pressure_gradient"}
+    if dotted_key in exclusive and isinstance(mapping.get("drive"), dict):
+        mapping["drive"].pop(exclusive[dotted_key], None)
 
 
 def load_case(path: str | Path) -> Case:
@@ -615,5 +627,5 @@ def _parse_output(table: dict) -> OutputSpec:
     return OutputSpec(_flag(table, "plots", "output", True), _flag(table, "fields", "output", True))
 
 
-__all__ = ["Case", "FluidSpec", "GeometrySpec", "DriveSpec", "MeshSpec", "SolverSpec",
+__all__ = ["assign", "Case", "FluidSpec", "GeometrySpec", "DriveSpec", "MeshSpec", "SolverSpec",
            "OutputSpec", "load_case"]

@@ -49,6 +49,11 @@ def profile_plot(solution: Solution, path: Path) -> None:
         ax.grid(True, alpha=0.3)
     if solution.model.is_yield_stress:
         _shade_plugs(axes, x, rows[:, -1], solution.model.yield_stress)
+    _save(fig, path, solution)
+
+
+def _save(fig, path: Path, solution: Solution) -> None:
+    """Title a figure with the case and save it."""
     fig.suptitle(f"{solution.case.title} ({solution.model.name} fluid, {solution.domain.shape})",
                  fontsize=10)
     fig.tight_layout()
@@ -118,11 +123,7 @@ def section_maps(solution: Solution, path: Path) -> None:
         ax.set_ylabel("y [mm]")
     if solution.model.is_yield_stress:
         axes[0].set_title("dashed: yield surface (stress = yield stress)", fontsize=8)
-    fig.suptitle(f"{solution.case.title} ({solution.model.name} fluid, {solution.domain.shape})",
-                 fontsize=10)
-    fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
+    _save(fig, path, solution)
 
 
 def wall_stress_plot(solution: Solution, path: Path) -> None:

@@ -38,7 +38,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .case import GEOMETRY_KEYS, MODEL_KEYS, Case, load_case
+from .case import GEOMETRY_KEYS, MODEL_KEYS, Case, assign, load_case
 from .errors import CaseError
 from .units import quantity, si_unit
 
@@ -175,24 +175,6 @@ def parse_vary(spec: str, case: Case, log: bool = False) -> Vary:
 def grid(varies: list[Vary]) -> list[tuple]:
     """Every combination of the varied values; the first key varies slowest."""
     return list(itertools.product(*(v.values for v in varies)))
-
-
-def assign(raw: dict, key: str, value) -> None:
-    """Set a dotted key in a case mapping, in place.
-
-    Setting one of the exclusive drives (``drive.pressure_gradient``,
-    ``drive.flow_rate``) removes the other, so a study can drive a case either way.
-    """
-    parts = key.split(".")
-    table = raw
-    for part in parts[:-1]:
-        table = table.setdefault(part, {})
-        if not isinstance(table, dict):
-            raise CaseError(key, value, "a key inside a table")
-    table[parts[-1]] = value
-    exclusive = {"drive.pressure_gradient": "flow_rate", "drive.flow_rate": "pressure_gradient"}
-    if key in exclusive:
-        raw.get("drive", {}).pop(exclusive[key], None)
 
 
 def hold_consistency(raw: dict, case: Case, keys) -> dict:
