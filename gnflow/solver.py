@@ -24,6 +24,7 @@ until it reaches the value chosen from the case's own scales (see
 
 from __future__ import annotations
 
+import copy
 import math
 import time
 from dataclasses import dataclass, field
@@ -114,17 +115,85 @@ class Solution:
     rate_floor: float = 0.0
     linear_solver: dict = field(default_factory=dict)
     coarse: "Solution | None" = None   # the grid-sequencing solution this one started from
+    _problem: "_Problem | None" = field(default=None, repr=False)
 
     def problem(self) -> "_Problem":
         """The discrete problem this solution solves (for post-processing)."""
-        problem = _Problem(self.domain, self.model)
-        problem.rate_floor = self.rate_floor
-        return problem
+        if self._problem is None:
+            self._problem = _Problem(self.domain, self.model)
+            self._problem.rate_floor = self.rate_floor
+        return self._problem
 
     def summary(self) -> dict:
         """The dict written to ``summary.json`` (SI units)."""
         from .post import summarise  # post builds on the solver, not the other way round
         return summarise(self)
+
+
+class AssemblyPlan:
+    """Vectorised assembly of the forms above on one basis, for repeated use.
+
+    The weak forms ``axial_tangent``, ``axial_momentum``, ``axial_residual`` and
+    ``stiffness_diagonal`` define the discrete problem; scikit-fem's ``asm`` assembles
+    them in general. A Newton solve assembles the same forms dozens of times on one mesh,
+    so this plan stores the basis gradients at the quadrature points element by element,
+    and the map from each element-matrix entry to its place in the CSR matrix of the free
+    dofs, found once. Each assembly is then one batched matrix product and one
+    ``bincount``, with no sparse-format conversion. ``tests/test_assembly.py`` checks the
+    plan against ``asm`` of the forms.
+    """
+
+    def __init__(self, basis, free: np.ndarray):
+        grads = np.array([basis.basis[i][0].grad for i in range(basis.Nbfun)])
+        nb, dim, ne, nq = grads.shape
+        self.dim, self.nq, self.size = dim, nq, basis.N
+        # (elements, basis functions, dim * points): a batched matrix per element
+        self.grads = np.ascontiguousarray(grads.transpose(2, 0, 1, 3).reshape(ne, nb, dim * nq))
+        self.dx = basis.dx
+        self.dofs = basis.element_dofs.T.copy()                     # (elements, nb)
+        index = -np.ones(basis.N, dtype=np.int64)
+        index[free] = np.arange(free.size)
+        local = index[self.dofs]
+        rows = np.broadcast_to(local[:, :, None], (ne, nb, nb))
+        cols = np.broadcast_to(local[:, None, :], (ne, nb, nb))
+        self.keep = (rows >= 0) & (cols >= 0)
+        keys = rows[self.keep] * free.size + cols[self.keep]
+        unique, self.position = np.unique(keys, return_inverse=True)
+        self.indices = (unique % free.size).astype(np.int32)
+        counts = np.bincount(unique // free.size, minlength=free.size)
+        self.indptr = np.concatenate([[0], np.cumsum(counts)]).astype(np.int32)
+        self.free_size = free.size
+
+    def gradient(self, u) -> np.ndarray:
+        """grad u at the quadrature points, shape (dim, elements, points)."""
+        values = np.matmul(u[self.dofs][:, None, :], self.grads)[:, 0, :]
+        return values.reshape(-1, self.dim, self.nq).transpose(1, 0, 2)
+
+    def _scatter(self, local) -> np.ndarray:
+        return np.bincount(self.dofs.ravel(), weights=local.ravel(), minlength=self.size)
+
+    def force(self, flux) -> np.ndarray:
+        """``int flux . grad v`` for every dof; ``flux`` shape (dim, elements, points)."""
+        weighted = (flux * self.dx).transpose(1, 0, 2).reshape(-1, self.dim * self.nq, 1)
+        return self._scatter(np.matmul(self.grads, weighted)[:, :, 0])
+
+    def diagonal(self, coefficient) -> np.ndarray:
+        """``int coefficient |grad v|^2`` for every dof."""
+        weight = np.tile(coefficient * self.dx, (1, self.dim))[:, None, :]
+        return self._scatter(np.sum(self.grads * self.grads * weight, axis=2))
+
+    def matrix(self, coefficient, tangent_coefficient=None, gradient=None) -> sp.csr_matrix:
+        """The operator on the free dofs: ``int c grad du . grad v (+ t (g . grad du)(g . grad v))``."""
+        weight = np.tile(coefficient * self.dx, (1, self.dim))[:, None, :]
+        local = np.matmul(self.grads * weight, self.grads.transpose(0, 2, 1))
+        if tangent_coefficient is not None:
+            g = gradient.transpose(1, 0, 2).reshape(-1, 1, self.dim * self.nq)
+            along = (self.grads * g).reshape(-1, self.grads.shape[1], self.dim, self.nq).sum(axis=2)
+            weighted = along * (tangent_coefficient * self.dx)[:, None, :]
+            local += np.matmul(weighted, along.transpose(0, 2, 1))
+        data = np.bincount(self.position, weights=local[self.keep], minlength=self.indices.size)
+        return sp.csr_matrix((data, self.indices, self.indptr),
+                             shape=(self.free_size, self.free_size))
 
 
 class _Problem:
@@ -142,9 +211,13 @@ class _Problem:
         self.free = np.setdiff1d(np.arange(basis.N), self.fixed)
         self.rate_floor = 0.0
         self.linear = LinearSolver("direct", self.free.size)
+        self._plan = None
 
-    def reduced(self, matrix: sp.csr_matrix) -> sp.csr_matrix:
-        return matrix[self.free][:, self.free]
+    @property
+    def plan(self) -> AssemblyPlan:
+        if self._plan is None:
+            self._plan = AssemblyPlan(self.domain.basis, self.free)
+        return self._plan
 
     def boundary_values(self) -> np.ndarray:
         u = np.zeros(self.domain.basis.N)
@@ -154,27 +227,25 @@ class _Problem:
 
     def shear_rate(self, u) -> np.ndarray:
         """Shear rate at the quadrature points, shape (elements, points)."""
-        gradient = self.domain.basis.interpolate(u).grad
-        return self.rate_factor * np.sqrt(np.sum(gradient ** 2, axis=0))
+        return self.rate_factor * np.sqrt(np.sum(self.plan.gradient(u) ** 2, axis=0))
 
     def _coefficients(self, u, tangent: bool):
-        gradient = self.domain.basis.interpolate(u).grad
+        gradient = self.plan.gradient(u)
         s2 = self.rate_factor ** 2
         # a smooth floor, sqrt(g^2 + floor^2), keeps the tangent continuous (see RATE_FLOOR)
         rate = np.sqrt(s2 * np.sum(gradient ** 2, axis=0) + self.rate_floor ** 2)
         eta = self.model.viscosity(rate)
         coefficient = self.area_weight * s2 * eta
-        extra = {}
+        extra = None
         if tangent:
             derivative = self.model.viscosity_derivative(rate)
-            extra["tangent_coefficient"] = self.area_weight * s2 * s2 * derivative / rate
+            extra = self.area_weight * s2 * s2 * derivative / rate
         return gradient, coefficient, extra
 
     def internal_force(self, u) -> np.ndarray:
         """``int a s^2 eta grad u . grad v``: the viscous force on each dof."""
         gradient, coefficient, _ = self._coefficients(u, False)
-        return asm(axial_residual, self.domain.basis, coefficient=coefficient,
-                   grad_state=gradient, pressure_gradient=0.0, area_weight=self.area_weight)
+        return self.plan.force(coefficient * gradient)
 
     def residual(self, u, pressure_gradient) -> np.ndarray:
         return self.internal_force(u) + pressure_gradient * self.load
@@ -190,26 +261,37 @@ class _Problem:
         residuals do not mask convergence elsewhere (nor fake it).
         """
         gradient, coefficient, _ = self._coefficients(u, False)
-        internal = asm(axial_residual, self.domain.basis, coefficient=coefficient,
-                       grad_state=gradient, pressure_gradient=0.0, area_weight=self.area_weight)
-        weight = 1.0 / np.sqrt(asm(stiffness_diagonal, self.domain.basis,
-                                   coefficient=coefficient))
+        internal = self.plan.force(coefficient * gradient)
+        weight = 1.0 / np.sqrt(self.plan.diagonal(coefficient))
         residual = (internal + pressure_gradient * self.load)[self.free] * weight[self.free]
         scale = max(np.linalg.norm(internal * weight),
                     np.linalg.norm(pressure_gradient * self.load * weight), 1e-300)
         return float(np.linalg.norm(residual) / scale)
 
     def tangent(self, u) -> sp.csr_matrix:
-        gradient, coefficient, extra = self._coefficients(u, True)
-        return asm(axial_tangent, self.domain.basis, coefficient=coefficient,
-                   grad_state=gradient, **extra).tocsr()
+        """The consistent Newton tangent on the free dofs."""
+        gradient, coefficient, derivative = self._coefficients(u, True)
+        return self.plan.matrix(coefficient, derivative, gradient)
 
-    def frozen(self, u) -> sp.csr_matrix:
-        gradient, coefficient, _ = self._coefficients(u, False)
-        return asm(axial_momentum, self.domain.basis, coefficient=coefficient).tocsr()
+    def frozen_coefficient(self, u) -> np.ndarray:
+        return self._coefficients(u, False)[1]
+
+    def frozen(self, coefficient) -> sp.csr_matrix:
+        """The operator with a given viscosity coefficient, on the free dofs."""
+        return self.plan.matrix(coefficient)
+
+    def frozen_action(self, coefficient, v) -> np.ndarray:
+        """The full operator with that coefficient applied to ``v`` (all dofs)."""
+        return self.plan.force(coefficient * self.plan.gradient(v))
 
     def flow_rate(self, u) -> float:
         return float(self.load @ u)
+
+    def sibling(self, model: rheology.Model) -> "_Problem":
+        """The same discrete problem with another model (sharing the assembly plan)."""
+        other = copy.copy(self)
+        other.model = model
+        return other
 
 
 # --------------------------------------------------------------------------- linear algebra
@@ -367,7 +449,7 @@ def _newton(problem: _Problem, u, gradient, target_rate, tol, max_iterations, hi
         iteration += 1
         J = problem.tangent(u)
         r = problem.residual(u, gradient)
-        problem.linear.prepare(problem.reduced(J))
+        problem.linear.prepare(J)
         # forcing term (Eisenstat-Walker choice 2 style): solve as tightly as the
         # nonlinear residual has just been reduced, never looser than 0.1
         forcing = min(0.1, max(0.9 * (current / previous) ** 2, 1e-3 * tol / max(current, 1e-300),
@@ -445,20 +527,22 @@ def _line_search(problem: _Problem, u, gradient, du, d_gradient) -> float:
     return t
 
 
-def _picard_step(problem: _Problem, u, gradient, target_rate, A=None):
-    """Solve with the viscosity frozen at ``u`` (or with the operator ``A``)."""
-    A = problem.frozen(u) if A is None else A
+def _picard_step(problem: _Problem, u, gradient, target_rate, coefficient=None):
+    """Solve with the viscosity frozen at ``u`` (or with a given coefficient field)."""
+    if coefficient is None:
+        coefficient = problem.frozen_coefficient(u)
     base = problem.boundary_values()
-    problem.linear.prepare(problem.reduced(A))
+    problem.linear.prepare(problem.frozen(coefficient))
+    lift = problem.frozen_action(coefficient, base)[problem.free]
     guess = u[problem.free] if problem.linear.method == "amg" else None
     if target_rate is None:
-        rhs = -(A @ base) - gradient * problem.load
         new = base.copy()
-        new[problem.free] = problem.linear.solve(rhs[problem.free], 1e-12, guess)
+        new[problem.free] = problem.linear.solve(-lift - gradient * problem.load[problem.free],
+                                                 1e-12, guess)
         return new, gradient
     # u = u_walls + G * u_unit: the flow rate is affine in G for a frozen viscosity
     walls = base.copy()
-    walls[problem.free] = problem.linear.solve(-(A @ base)[problem.free], 1e-12)
+    walls[problem.free] = problem.linear.solve(-lift, 1e-12)
     unit = np.zeros_like(u)
     unit[problem.free] = problem.linear.solve(-problem.load[problem.free], 1e-12)
     new_gradient = (target_rate - problem.flow_rate(walls)) / problem.flow_rate(unit)
@@ -484,8 +568,7 @@ def _picard(problem, u, gradient, target_rate, tol, max_iterations, history, sta
 def _initial_state(problem: _Problem, case: Case, model: rheology.Model, rate: float):
     """A Newtonian solution with the model's viscosity at the characteristic rate."""
     reference = rheology.Newtonian(float(model.viscosity(np.array([rate]))[0]))
-    newtonian = _Problem(problem.domain, reference)
-    newtonian.linear = problem.linear
+    newtonian = problem.sibling(reference)
     gradient = case.drive.pressure_gradient or 0.0
     u, gradient = _picard_step(newtonian, newtonian.boundary_values(), gradient,
                                case.drive.flow_rate)
@@ -499,9 +582,8 @@ def _initial_state(problem: _Problem, case: Case, model: rheology.Model, rate: f
     viscosity = model.viscosity(_rates_at_stress(model, stress, np.maximum(rate_n, 1e-300)))
     if not np.all(np.isfinite(viscosity)) or not np.all(viscosity > 0):
         return u, gradient
-    A = asm(axial_momentum, problem.domain.basis,
-            coefficient=problem.area_weight * problem.rate_factor ** 2 * viscosity).tocsr()
-    return _picard_step(problem, u, gradient, case.drive.flow_rate, A)
+    coefficient = problem.area_weight * problem.rate_factor ** 2 * viscosity
+    return _picard_step(problem, u, gradient, case.drive.flow_rate, coefficient)
 
 
 def _rates_at_stress(model: rheology.Model, stress, start) -> np.ndarray:
@@ -705,6 +787,8 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None) ->
                               "amg_setups": problem.linear.setups,
                               "cg_iterations": sum(problem.linear.cg_iterations)}
     solution.coarse = coarse
+    problem.model = model
+    solution._problem = problem
     return solution
 
 
@@ -712,10 +796,7 @@ def _regularisation_error(problem: _Problem, u, gradient, target, spec, case) ->
     """Relative change of the flow rate (or torque) with the regularisation half as sharp."""
     model = problem.model
     factor = 0.5 if model.regularisation == "papanastasiou" else 2.0
-    softer = _Problem(problem.domain, model.with_regularisation(
-        model.regularisation_parameter * factor))
-    softer.rate_floor = problem.rate_floor
-    softer.linear = problem.linear
+    softer = problem.sibling(model.with_regularisation(model.regularisation_parameter * factor))
     u2, g2, ok, _ = _newton(softer, u.copy(), gradient, target, spec.tolerance, 50, [], 0)
     if not ok:
         return None

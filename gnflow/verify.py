@@ -518,6 +518,8 @@ def convergence_plot(result: VerificationResult, path: Path) -> None:
         diffs = np.abs(np.diff(values)) / np.abs(values[1:])
         ax.loglog(h[1:], diffs, "s--", ms=4, label="change from previous level (rel.)")
         ax.set_ylabel("relative difference")
+    from matplotlib.ticker import NullFormatter
+    ax.xaxis.set_minor_formatter(NullFormatter())   # a narrow h range crowds minor labels
     ax.set_xlabel("cell size h [m]")
     ax.set_title(f"{result.case.title}: P{result.degree}", fontsize=9)
     ax.grid(True, which="both", alpha=0.3)
