@@ -711,7 +711,11 @@ def fluid_card(fit: ModelFit, data: FlowCurveData, ranked: int = 1) -> str:
         law = fit.temperature_law
         lines += ['temperature_law = "arrhenius"',
                   f'activation_energy = "{_number(law.activation_energy / 1e3)} kJ/mol"',
-                  f'reference_temperature = "{_celsius(law.reference_temperature)}"']
+                  f'reference_temperature = "{_celsius(law.reference_temperature)}"',
+                  f'fitted_temperature_range = ["{_celsius(levels[0])}", '
+                  f'"{_celsius(levels[-1])}"]',
+                  "# temperature = \"...\"   (the case's fluid temperature; default: the "
+                  "reference temperature)"]
     return "\n".join(lines) + "\n"
 
 

@@ -88,3 +88,28 @@ def test_bad_temperature_keys(fluid, key):
     with pytest.raises(CaseError) as err:
         Case.from_dict({**PIPE, "fluid": fluid})
     assert key in str(err.value)
+
+
+def test_temperature_card_round_trip(tmp_path):
+    """A card fitted on data at 20, 40 and 60 degC (Arrhenius, 35 kJ/mol) predicts the flow
+    at 50 degC; the same card at 90 degC warns that it is extrapolated in temperature."""
+    rng = np.random.default_rng(11)
+    rows = []
+    for celsius in (20.0, 40.0, 60.0):
+        shift = math.exp(35e3 / 8.314462618 * (1 / (celsius + 273.15) - 1 / 313.15))
+        for rate in np.logspace(-1, 3, 12):
+            stress = 3.0 * (shift * rate) ** 0.5 * (1 + 0.01 * rng.standard_normal())
+            rows.append(f"{rate:.6g},{stress:.6g},{celsius}")
+    data_file = tmp_path / "solution.csv"
+    data_file.write_text("shear_rate [1/s],shear_stress [Pa],temperature [degC]\n"
+                         + "\n".join(rows))
+    data = read_flow_curve(data_file)
+    card = tomllib.loads(fluid_card(fit_models(data, ["power-law"])[0], data))["fluid"]
+    assert card["temperature_law"] == "arrhenius"
+    warm = solve(Case.from_dict({**PIPE, "fluid": {**card, "temperature": "50 degC"}})).summary()
+    shift = math.exp(35e3 / 8.314462618 * (1 / 323.15 - 1 / 313.15))
+    exact = analytic.pipe_power_law(0.012, 3.0 * shift ** 0.5, 0.5, -6000.0).flow_rate
+    assert warm["flow_rate"] == pytest.approx(exact, rel=0.05)
+    assert not [w for w in warm["warnings"] if "temperature" in w]
+    hot = solve(Case.from_dict({**PIPE, "fluid": {**card, "temperature": "90 degC"}})).summary()
+    assert any("outside the fluid card's data" in w for w in hot["warnings"])
