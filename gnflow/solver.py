@@ -396,12 +396,6 @@ def characteristic_rate(case: Case, domain: Domain, model: rheology.Model) -> fl
     return max(max(rates), 1e-300)
 
 
-def _statically_determinate(case: Case, domain: Domain) -> bool:
-    """Whether the stress field follows from the pressure gradient alone."""
-    return (domain.shape in ("slit", "pipe") and case.drive.pressure_gradient is not None
-            and not any(case.drive.wall_speed.values()))
-
-
 def expected_to_yield(case: Case, domain: Domain, model: rheology.Model) -> bool:
     """Whether the drive's wall-stress scale exceeds the yield stress (always true for
     flows driven by wall motion or a flow rate, which must yield somewhere)."""
@@ -675,16 +669,20 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
     yield_stress = model.is_yield_stress
     user_parameter = case.fluid.regularisation_parameter
     if yield_stress:
-        # Where statics fixes the stress (slit, pipe, no moving walls) the stress-
-        # consistent start is already close for any sharpness: start at the target.
-        # Elsewhere start soft, since a sharp yield stress is a poor place to start Newton.
-        softening = 1.0 if _statically_determinate(case, domain) else 1e-3
-        start = default_regularisation(model, rate) * (softening if model.regularisation ==
-                                                       "papanastasiou" else 1 / softening)
-        if user_parameter is not None:
-            start = min(start, user_parameter) if model.regularisation == "papanastasiou" \
-                else max(start, user_parameter)
-        model = model.with_regularisation(start)
+        # The stress-consistent start (see _initial_state) is close for any sharpness in
+        # 1-D, so 1-D flows start at the target sharpness, and fall back to a soft start
+        # with continuation if that fails; 2-D sections start soft (a sharp yield stress
+        # is a poor place to start Newton from an approximate stress field).
+        def regularised_start(softening):
+            start = default_regularisation(model, rate) * (
+                softening if model.regularisation == "papanastasiou" else 1 / softening)
+            if user_parameter is not None:
+                start = min(start, user_parameter) if model.regularisation == \
+                    "papanastasiou" else max(start, user_parameter)
+            return model.with_regularisation(start)
+        sharp_start = domain.dimension == 1
+        soft_model = regularised_start(1e-3)
+        model = regularised_start(1.0) if sharp_start else soft_model
     if coarse is not None and yield_stress:
         model = coarse.model  # already regularised as sharply as the flow needs
     problem = _Problem(domain, model)
@@ -728,6 +726,12 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
         if not yield_stress or used >= budget:
             break
         if not converged:
+            if last_good is None and sharp_start:
+                # the sharp start failed: begin again, soft, and continue from there
+                sharp_start, model = False, soft_model
+                problem.model = model
+                u, gradient = _initial_state(problem, case, model, rate)
+                continue
             if last_good is None or step < 1.2:
                 break
             # the stage was too big a jump: go back and sharpen more gently

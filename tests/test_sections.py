@@ -191,3 +191,18 @@ def test_section_outputs(tmp_path):
         mesh.point_data)
     assert "triangle6" in mesh.cells_dict
     assert math.isclose(solution.summary()["flow_rate"], 2e-4, rel_tol=1e-9)
+
+
+@pytest.mark.parametrize("suffix", [".vtu", ".xdmf"])
+def test_mesh_file_without_groups_is_all_one_wall(tmp_path, suffix):
+    from skfem import MeshTri
+    mesh = MeshTri.init_tensor(np.linspace(0, 0.02, 25), np.linspace(0, 0.01, 13))
+    points = np.column_stack([mesh.p.T, np.zeros(mesh.nvertices)])
+    meshio.write(tmp_path / f"duct{suffix}", meshio.Mesh(points, [("triangle", mesh.t.T)]))
+    case = Case.from_dict({"fluid": NEWTONIAN, "geometry": {"shape": "mesh",
+                                                            "file": str(tmp_path / f"duct{suffix}")},
+                           "drive": {"pressure_gradient": -50.0}})
+    s = solve(case).summary()
+    assert list(s["wall_shear_stress"]["per_wall"]) == ["wall"]
+    series = analytic.rectangle_newtonian_flow_rate(0.02, 0.01, 0.2, -50.0)
+    assert s["flow_rate"] == pytest.approx(series, rel=1e-4)

@@ -216,6 +216,10 @@ def test_newton_and_picard_agree():
 @pytest.mark.parametrize("shape", ["slit", "pipe", "annulus+inner"])
 def test_flow_rate_targeting_round_trip(fluid, shape):
     spec = {**SMOOTH_FLUIDS, **YIELD_FLUIDS}[fluid]
+    if fluid == "bingham":
+        # the same regularised model both ways: the automatic choice follows each solve's
+        # own shear rates, which would differ by the (reported) regularisation error
+        spec = {**spec, "regularisation": {"exponent": "2 s"}}
     geometry, drive = AXIAL_SHAPES[shape]
     forward = solve(_case(spec, geometry, drive)).summary()
     inverse_drive = {k: v for k, v in drive.items() if k != "pressure_gradient"}
