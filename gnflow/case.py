@@ -289,7 +289,8 @@ class Case:
             fluid["temperature_law"] = self.fluid.temperature_law
         geometry = {k: (str(v) if isinstance(v, Path) else v)
                     for k, v in self.geometry.__dict__.items()
-                    if v is not None and not (k == "length_unit" and v == 1.0)}
+                    if v is not None and not (k == "length_unit" and v == 1.0)
+                    and not (k == "eccentricity" and self.geometry.shape != "annulus")}
         drive = {k: v for k, v in self.drive.__dict__.items() if v not in (None, {})}
         if not self.geometry.is_axial:
             drive = {k: v for k, v in drive.items() if "angular" in k}

@@ -7,7 +7,6 @@ converged; 130 interrupted.
 from __future__ import annotations
 
 import argparse
-import json
 import sys
 from importlib import resources
 from pathlib import Path
@@ -148,12 +147,52 @@ def _run_case(case_path, out, quiet: bool) -> int:
     return 0
 
 
+def _si_unit(section: str, key: str, case) -> str:
+    from .case import MODEL_KEYS
+    from .units import si_unit
+
+    if section == "fluid":
+        if key == "consistency":
+            return si_unit("consistency", case.fluid.model.flow_index)
+        dims = {k: d for k, (d, _) in MODEL_KEYS[case.fluid.name].items()}
+        dims.update(density="density", temperature="temperature")
+        dimension = dims.get(key)
+        return si_unit(dimension) if dimension and dimension != "dimensionless" else ""
+    if section == "geometry":
+        return "m" if key not in ("shape", "eccentricity", "file", "length_unit") else ""
+    if section == "drive":
+        if key == "flow_rate":
+            return "m^2/s" if case.geometry.shape == "slit" else "m^3/s"
+        return {"pressure_gradient": "Pa/m", "wall_speed": "m/s",
+                "inner_angular_speed": "rad/s", "outer_angular_speed": "rad/s"}.get(key, "")
+    return ""
+
+
+def format_case(case) -> str:
+    """The interpreted case, one dotted key a line, every number in SI with its unit."""
+    lines = [f"title: {case.title}"]
+    for section, table in case.to_si().items():
+        if not isinstance(table, dict):
+            continue
+        for key, value in table.items():
+            unit = _si_unit(section, key, case)
+            if isinstance(value, dict):
+                shown = ", ".join(f"{k} = {_fmt(v, unit, 8) if isinstance(v, float) else v}"
+                                  for k, v in value.items())
+            elif isinstance(value, float):
+                shown = _fmt(value, unit, 8)
+            else:
+                shown = str(value)
+            lines.append(f"  {section}.{key} = {shown}")
+    return "\n".join(lines)
+
+
 def _check(case_path) -> int:
     from .case import load_case
 
     case = load_case(case_path)
     print(f"{case_path}: valid. Interpreted in SI units:")
-    print(json.dumps(case.to_si(), indent=2, default=str))
+    print(format_case(case))
     return 0
 
 

@@ -52,8 +52,8 @@ def test_check_prints_si(capsys):
     case = ROOT / "cases" / "polymer_transfer_pipe.toml"
     assert main(["check", str(case)]) == 0
     out = capsys.readouterr().out
-    assert '"radius": 0.0254' in out  # 1 in
-    assert "0.001577" in out          # 25 gal/min in m^3/s
+    assert "geometry.radius = 0.0254 m" in out       # 1 in
+    assert "drive.flow_rate = 0.0015772549 m^3/s" in out  # 25 gal/min
 
 
 def test_rerun_replaces_results_cleanly(tmp_path):
