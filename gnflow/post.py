@@ -104,7 +104,7 @@ def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
         viscosity = solution.model.viscosity(np.sqrt(np.sum(gradient ** 2, axis=0)
                                                      + solution.rate_floor ** 2))
         stress = -viscosity * normal_derivative
-        points = facet_basis.global_coordinates().value
+        points = np.asarray(facet_basis.global_coordinates())
         lengths = facet_basis.dx.sum(axis=1)
         start = np.concatenate([[0.0], np.cumsum(lengths)[:-1]])
         # positions of the quadrature points along each facet, in proportion to weights

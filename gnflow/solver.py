@@ -204,7 +204,7 @@ class _Problem:
         self.domain = domain
         self.model = model
         basis = domain.basis
-        x = basis.global_coordinates().value
+        x = np.asarray(basis.global_coordinates())
         self.area_weight = domain.area_weight(x)
         self.rate_factor = domain.rate_factor(x)
         self.load = asm(area_integral, basis, area_weight=self.area_weight)  # int a v
@@ -636,7 +636,7 @@ def _interpolated(coarse: "Solution", domain: Domain) -> np.ndarray:
     ref = basis.mapping.invF(x[:, :, np.newaxis], tind=cells)
     values = np.zeros(x.shape[1])
     for local in range(basis.Nbfun):
-        phi = basis.elem.gbasis(basis.mapping, ref, local, tind=cells)[0].value[:, 0]
+        phi = np.asarray(basis.elem.gbasis(basis.mapping, ref, local, tind=cells)[0])[:, 0]
         values += phi * coarse.u[basis.element_dofs[local, cells]]
     return values
 
