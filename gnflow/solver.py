@@ -656,7 +656,8 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
     domain = domain or build_domain(case, cells)
     coarse = None
     if (domain.dimension == 2 and domain.shape in ("rectangle", "annulus")
-            and domain.dofs > SEQUENCING_LIMIT and domain.cells >= 4):
+            and domain.dofs > SEQUENCING_LIMIT and domain.cells >= 4
+            and case.fluid.model.name != "newtonian"):  # a linear problem: one solve
         coarse = solve(case, cells=domain.cells // 2, estimate_regularisation=False)
         if not coarse.converged:
             coarse = None
