@@ -670,10 +670,9 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
     yield_stress = model.is_yield_stress
     user_parameter = case.fluid.regularisation_parameter
     if yield_stress:
-        # The stress-consistent start (see _initial_state) is close for any sharpness in
-        # 1-D, so 1-D flows start at the target sharpness, and fall back to a soft start
-        # with continuation if that fails; 2-D sections start soft (a sharp yield stress
-        # is a poor place to start Newton from an approximate stress field).
+        # The stress-consistent start (see _initial_state) is close enough for Newton at
+        # the target sharpness, so the solve starts there; if that fails it begins again
+        # soft and sharpens by continuation.
         def regularised_start(softening):
             start = default_regularisation(model, rate) * (
                 softening if model.regularisation == "papanastasiou" else 1 / softening)
@@ -681,7 +680,7 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
                 start = min(start, user_parameter) if model.regularisation == \
                     "papanastasiou" else max(start, user_parameter)
             return model.with_regularisation(start)
-        sharp_start = domain.dimension == 1
+        sharp_start = True   # cleared when the sharp start has failed once
         soft_model = regularised_start(1e-3)
         model = regularised_start(1.0) if sharp_start else soft_model
     if coarse is not None and yield_stress:
