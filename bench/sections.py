@@ -117,10 +117,11 @@ def run_picard(cells: int, model: str, seconds_cap: float, iteration_cap: int) -
     base = problem.boundary_values()
 
     def picard_solve(prob, u):
-        A = prob.frozen(u)
-        rhs = -(A @ base) - G * prob.load
+        # gnflow's own assembly (so only the iteration and the linear solver differ)
+        coefficient = prob.frozen_coefficient(u)
+        rhs = -prob.frozen_action(coefficient, base) - G * prob.load
         new = base.copy()
-        new[free] = spla.spsolve(prob.reduced(A), rhs[free])
+        new[free] = spla.spsolve(prob.frozen(coefficient), rhs[free])
         return new
 
     start_model = rheology.Newtonian(float(fluid_model.viscosity(np.array([rate]))[0]))

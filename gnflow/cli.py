@@ -125,6 +125,14 @@ def format_summary(summary: dict) -> str:
     return "\n".join(lines)
 
 
+def _progress_line(entry) -> None:
+    """One overwritten line on a terminal while the solver iterates."""
+    sharpness = (f", regularisation {entry.regularisation_parameter:.3g}"
+                 if entry.regularisation_parameter else "")
+    print(f"\r  {entry.method} iteration {entry.iteration}: relative residual "
+          f"{entry.residual:.2e}{sharpness}   ", end="", file=sys.stderr, flush=True)
+
+
 def _run_case(case_path, out, quiet: bool) -> int:
     from .case import load_case
     from .export import write_outputs
@@ -132,7 +140,10 @@ def _run_case(case_path, out, quiet: bool) -> int:
 
     case = load_case(case_path)
     out_dir = Path(out) if out else Path("results") / Path(case_path).stem
-    solution = solve(case)
+    progress = _progress_line if sys.stderr.isatty() and not quiet else None
+    solution = solve(case, progress=progress)
+    if progress:
+        print(file=sys.stderr)
     summary = solution.summary()
     written = write_outputs(solution, summary, out_dir)
     if quiet:

@@ -27,7 +27,7 @@ from __future__ import annotations
 import copy
 import math
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import scipy.sparse as sp
@@ -93,6 +93,19 @@ class Iteration:
     step: float
     pressure_gradient: float
     regularisation_parameter: float | None = None
+
+
+class _History(list):
+    """The convergence history; each entry is also passed to a progress callback."""
+
+    def __init__(self, progress=None):
+        super().__init__()
+        self.progress = progress
+
+    def append(self, entry: Iteration) -> None:
+        super().append(entry)
+        if self.progress is not None:
+            self.progress(entry)
 
 
 @dataclass
@@ -642,7 +655,7 @@ def _interpolated(coarse: "Solution", domain: Domain) -> np.ndarray:
 
 
 def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
-          estimate_regularisation: bool = True) -> Solution:
+          estimate_regularisation: bool = True, progress=None) -> Solution:
     """Solve a case; returns a :class:`Solution` (converged or not, never raises for
     non-convergence).
 
@@ -658,12 +671,16 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
     if (domain.dimension == 2 and domain.shape in ("rectangle", "annulus")
             and domain.dofs > SEQUENCING_LIMIT and domain.cells >= 4
             and case.fluid.model.name != "newtonian"):  # a linear problem: one solve
-        coarse = solve(case, cells=domain.cells // 2, estimate_regularisation=False)
+        # the coarse solution is only a start: a loose tolerance there suffices
+        rough = replace(case, solver=replace(case.solver,
+                                             tolerance=max(case.solver.tolerance, 1e-6)))
+        coarse = solve(rough, cells=domain.cells // 2, estimate_regularisation=False,
+                       progress=progress)
         if not coarse.converged:
             coarse = None
     spec = case.solver
     model = case.fluid.model
-    history: list[Iteration] = []
+    history = _History(progress)   # progress(entry) is called on every iteration
     rate = characteristic_rate(case, domain, model)
     yields = expected_to_yield(case, domain, model)
     regularisation = None

@@ -263,3 +263,10 @@ def test_force_balance_and_summary_contract():
         assert key in s
     assert s["force_balance_error"] < 1e-9
     assert 0 < s["unyielded_fraction"] < 1
+
+
+def test_progress_callback_sees_every_iteration():
+    seen = []
+    solution = solve(_case(SMOOTH_FLUIDS["carreau"], *AXIAL_SHAPES["annulus+inner"]),
+                     progress=seen.append)
+    assert seen == list(solution.history) and len(seen) >= 1
