@@ -249,6 +249,9 @@ def main(argv: list[str] | None = None) -> int:
     except CaseError as err:
         print(f"gnflow: error: {err}", file=sys.stderr)
         return 2
+    except BrokenPipeError:  # output piped into a command that stopped reading
+        sys.stderr.close()
+        return 0
     except KeyboardInterrupt:
         print("gnflow: interrupted; results of this run were not written", file=sys.stderr)
         return 130

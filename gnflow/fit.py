@@ -324,8 +324,14 @@ def fit_models(data: FlowCurveData, models=None) -> list[ModelFit]:
     when none is left is that an error.
     """
     with_temperature = data.reference_temperature is not None
+    low, high = data.rate_range
+    single_rate = high <= low * (1 + 1e-9)
     if models is None:
         names = [m for m in MODELS if parameter_count(m, with_temperature) < data.points]
+        if single_rate:
+            # one shear rate (a viscosity-temperature table): only a Newtonian law can be
+            # determined; any shear-rate dependence would be pure guesswork
+            names = [m for m in names if m == "newtonian"]
         if not names:
             _too_few_points(data, "newtonian", with_temperature)
     else:
@@ -337,6 +343,10 @@ def fit_models(data: FlowCurveData, models=None) -> list[ModelFit]:
                                 + (f" (did you mean {hint[0]!r}?)" if hint else ""))
             if parameter_count(name, with_temperature) >= data.points:
                 _too_few_points(data, name, with_temperature)
+            if single_rate and name != "newtonian":
+                raise CaseError(str(data.source), name, (
+                    "newtonian: the data hold a single shear rate "
+                    f"({low:.4g} 1/s), so no shear-rate dependence can be fitted"))
     fits = [_fit_model(data, name) for name in names]
     return sorted(fits, key=lambda f: (f.aic, len(f.parameters)))
 
@@ -436,6 +446,10 @@ class _Space:
                 out[name] = None
                 continue
             half = t_quantile * math.sqrt(max(float(gradient @ covariance @ gradient), 0.0))
+            if not math.isfinite(half) or (name in _LOG_FITTED and x[i] + half > 700):
+                # an interval wider than any float: the data do not determine it
+                out[name] = None
+                continue
             if name in _LOG_FITTED:  # multiplicative
                 out[name] = (math.exp(x[i] - half), math.exp(x[i] + half))
             elif name == "yield_stress":
@@ -852,9 +866,12 @@ def run_fit_command(data_path: str, models: list[str] | None, out_dir: str | Non
     print(format_table(fits, data))
     with_temperature = data.reference_temperature is not None
     left_out = [m for m in MODELS if names is None and m not in {f.model for f in fits}]
+    single_rate = data.rate_range[1] <= data.rate_range[0] * (1 + 1e-9)
     for model in left_out:
-        print(f"  left out {model}: {parameter_count(model, with_temperature)} parameters "
-              f"need at least {parameter_count(model, with_temperature) + 1} points")
+        count = parameter_count(model, with_temperature)
+        reason = ("the data hold a single shear rate" if single_rate and count < data.points
+                  else f"{count} parameters need at least {count + 1} points")
+        print(f"  left out {model}: {reason}")
     print(f"\nwrote {out / 'fit.json'}, {out / 'fluid.toml'} ({fits[0].model}) "
           f"and {out / 'fit.png'}")
     return 0

@@ -330,3 +330,18 @@ def test_command_line_exit_code_for_a_bad_file(tmp_path):
     assert result.returncode == 2
     assert "bad.csv, line 3, column 'shear_stress'" in result.stderr + result.stdout
     assert "Traceback" not in result.stderr
+
+
+def test_single_shear_rate_table_fits_only_newtonian(tmp_path, capsys):
+    """A viscosity-temperature table at one shear rate determines no rate dependence:
+    the default fit is Newtonian (with its Arrhenius shift), and asking for another
+    model is refused with a clear message (exit 2)."""
+    from gnflow.cli import main
+    data = Path(__file__).parent / "data" / "water_viscosity.csv"
+    assert main(["fit", str(data), "--out", str(tmp_path / "fit")]) == 0
+    out = capsys.readouterr().out
+    assert "left out power-law: the data hold a single shear rate" in out
+    report = json.loads((tmp_path / "fit" / "fit.json").read_text())
+    assert [m["model"] for m in report["models"]] == ["newtonian"]
+    assert main(["fit", str(data), "--models", "carreau", "--out", str(tmp_path / "x")]) == 2
+    assert "single shear rate" in capsys.readouterr().err
