@@ -14,7 +14,6 @@ Values marked "(recalled from memory)" were not looked up while writing the test
 """
 
 import doctest
-import time
 
 import numpy as np
 import pytest
@@ -613,15 +612,13 @@ def test_bad_input_is_refused():
         pipe_flow(Newtonian(1.0), 0.01, -1.0).velocity(np.array([0.02]))
 
 
-def test_velocity_on_many_points_is_fast():
-    """Evaluating a semi-analytic profile at 2000 points (mesh nodes) stays well under 1 s."""
+def test_velocity_on_many_unsorted_points():
+    """A profile evaluated at 2000 unsorted points (mesh nodes) equals the sorted evaluation
+    (its speed is measured in bench/references.py, not here)."""
     reference = annulus_flow(CarreauYasuda(12.0, 0.0, 0.7, 0.35, 0.8), 0.02, 0.05, -5000.0,
                              0.1, 0.0)
     r = np.random.default_rng(7).uniform(0.02, 0.05, 2000)
-    start = time.perf_counter()
     velocity = reference.velocity(r)
-    elapsed = time.perf_counter() - start
-    assert elapsed < 1.0
     order = np.argsort(r)
     assert np.allclose(velocity[order], reference.velocity(r[order]), rtol=0, atol=1e-15)
 
