@@ -52,6 +52,18 @@ def project(basis, values_at_points) -> np.ndarray:
     return result
 
 
+def _once(function):
+    """Compute a derived quantity of a solution once; the summary and every output file
+    then share it (the projections behind ``fields`` are the dearest part of a run)."""
+    def cached(solution: Solution):
+        if function.__name__ not in solution.derived:
+            solution.derived[function.__name__] = function(solution)
+        return solution.derived[function.__name__]
+    cached.__name__, cached.__doc__ = function.__name__, function.__doc__
+    return cached
+
+
+@_once
 def fields(solution: Solution) -> dict[str, np.ndarray]:
     """Point fields at the dofs: velocity (axial) or angular speed, shear rate,
     apparent viscosity, shear stress magnitude; plus the coordinate ``x``."""
@@ -88,6 +100,7 @@ def wall_stresses(solution: Solution) -> dict[str, float]:
     return out
 
 
+@_once
 def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
     """Along each wall of a 2-D section: arc length ``s`` (m, along the chained wall
     facets), points ``x``, ``y``, and the wall shear stress (Pa, on the wall in +z) and

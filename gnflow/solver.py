@@ -129,6 +129,8 @@ class Solution:
     linear_solver: dict = field(default_factory=dict)
     coarse: "Solution | None" = None   # the grid-sequencing solution this one started from
     _problem: "_Problem | None" = field(default=None, repr=False)
+    #: derived fields, computed once by gnflow.post and shared by every output
+    derived: dict = field(default_factory=dict, repr=False)
 
     def problem(self) -> "_Problem":
         """The discrete problem this solution solves (for post-processing)."""
@@ -226,6 +228,7 @@ class _Problem:
         self.rate_floor = 0.0
         self.linear = LinearSolver("direct", self.free.size)
         self._plan = None
+        self._memo = None
 
     @property
     def plan(self) -> AssemblyPlan:
@@ -244,17 +247,25 @@ class _Problem:
         return self.rate_factor * np.sqrt(np.sum(self.plan.gradient(u) ** 2, axis=0))
 
     def _coefficients(self, u, tangent: bool):
-        gradient = self.plan.gradient(u)
-        s2 = self.rate_factor ** 2
-        # a smooth floor, sqrt(g^2 + floor^2), keeps the tangent continuous (see RATE_FLOOR)
-        rate = np.sqrt(s2 * np.sum(gradient ** 2, axis=0) + self.rate_floor ** 2)
-        eta = self.model.viscosity(rate)
-        coefficient = self.area_weight * s2 * eta
-        extra = None
-        if tangent:
-            derivative = self.model.viscosity_derivative(rate)
-            extra = self.area_weight * s2 * s2 * derivative / rate
-        return gradient, coefficient, extra
+        """grad u, the viscosity coefficient and (for the tangent) the derivative term at
+        the quadrature points. The last state's values are kept: a Newton step evaluates
+        the accepted iterate for its merit and again for the next tangent and residual.
+        Iterates are never changed in place (each is a new array), so the identity of
+        ``u`` (held here, so it cannot be reused) identifies the state."""
+        key = (self.model, self.rate_floor)
+        if self._memo is None or self._memo[0] is not u or self._memo[1] != key:
+            gradient = self.plan.gradient(u)
+            s2 = self.rate_factor ** 2
+            # a smooth floor, sqrt(g^2 + floor^2), keeps the tangent continuous (RATE_FLOOR)
+            rate = np.sqrt(s2 * np.sum(gradient ** 2, axis=0) + self.rate_floor ** 2)
+            coefficient = self.area_weight * s2 * self.model.viscosity(rate)
+            self._memo = [u, key, gradient, rate, coefficient, None]
+        _, _, gradient, rate, coefficient, extra = self._memo
+        if tangent and extra is None:
+            s2 = self.rate_factor ** 2
+            extra = self.area_weight * s2 * s2 * self.model.viscosity_derivative(rate) / rate
+            self._memo[5] = extra
+        return gradient, coefficient, extra if tangent else None
 
     def internal_force(self, u) -> np.ndarray:
         """``int a s^2 eta grad u . grad v``: the viscous force on each dof."""
@@ -305,6 +316,7 @@ class _Problem:
         """The same discrete problem with another model (sharing the assembly plan)."""
         other = copy.copy(self)
         other.model = model
+        other._memo = None
         return other
 
 

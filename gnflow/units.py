@@ -133,18 +133,3 @@ def quantity(value, dimension: str, key: str, flow_index: float | None = None) -
     if not math.isfinite(converted):
         raise CaseError(key, value, "a finite value")
     return converted
-
-
-def dimension_of(value: str) -> str | None:
-    """The name in :data:`DIMENSIONS` whose dimensionality matches a string's units."""
-    match = _NUMBER.match(value) if isinstance(value, str) else None
-    if not match or not match.group(2):
-        return None
-    try:
-        dims = registry.parse_units(match.group(2).replace("^", "**")).dimensionality
-    except Exception:
-        return None
-    for name, unit in DIMENSIONS.items():
-        if unit and registry.parse_units(unit).dimensionality == dims:
-            return name
-    return None
