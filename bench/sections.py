@@ -101,7 +101,7 @@ def run_picard(cells: int, model: str, seconds_cap: float, iteration_cap: int) -
     import scipy.sparse.linalg as spla
     from gnflow import rheology, solve
     from gnflow.geometry import build_domain
-    from gnflow.solver import RATE_FLOOR, _Problem, characteristic_rate
+    from gnflow.solver import RATE_FLOOR, Problem, characteristic_rate
 
     case = make_case(cells, model)
     fluid_model = case.fluid.model
@@ -110,7 +110,7 @@ def run_picard(cells: int, model: str, seconds_cap: float, iteration_cap: int) -
     start, cpu = time.perf_counter(), time.process_time()
     domain = build_domain(case, cells)
     rate = characteristic_rate(case, domain, case.fluid.model)
-    problem = _Problem(domain, fluid_model)
+    problem = Problem(domain, fluid_model)
     problem.rate_floor = RATE_FLOOR * rate
     G = case.drive.pressure_gradient
     free = problem.free
@@ -125,7 +125,7 @@ def run_picard(cells: int, model: str, seconds_cap: float, iteration_cap: int) -
         return new
 
     start_model = rheology.Newtonian(float(fluid_model.viscosity(np.array([rate]))[0]))
-    start_problem = _Problem(domain, start_model)
+    start_problem = Problem(domain, start_model)
     u = picard_solve(start_problem, base)
     iterations, residual, capped = 0, problem.relative_residual(u, G), False
     while residual > TOLERANCE:

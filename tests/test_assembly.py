@@ -6,7 +6,7 @@ from skfem import asm
 
 from gnflow.case import Case
 from gnflow.geometry import build_domain
-from gnflow.solver import (_Problem, axial_momentum, axial_residual, axial_tangent,
+from gnflow.solver import (Problem, axial_momentum, axial_residual, axial_tangent,
                            stiffness_diagonal)
 
 GEOMETRIES = {
@@ -27,7 +27,7 @@ def test_plan_equals_asm_of_the_forms(name):
                            "geometry": geometry, "drive": {"pressure_gradient": -10.0},
                            "mesh": mesh})
     domain = build_domain(case)
-    problem = _Problem(domain, case.fluid.model)
+    problem = Problem(domain, case.fluid.model)
     problem.rate_floor = 1e-9
     rng = np.random.default_rng(3)
     u = rng.standard_normal(domain.dofs)

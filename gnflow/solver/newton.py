@@ -1,0 +1,192 @@
+"""Newton and Picard iterations over the apparent viscosity, the line search, and the
+stress-consistent initial state."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .. import rheology
+from ..case import Case
+from .assembly import Problem
+from .solution import Iteration
+
+
+def newton(problem: Problem, u, gradient, target_rate, tol, max_iterations, history,
+            start_iteration):
+    """Newton with backtracking on the residual; returns (u, G, converged, iterations)."""
+    fixed_gradient = target_rate is None
+    iteration = start_iteration
+
+    def merit(u_, g_):
+        r = problem.relative_residual(u_, g_)
+        if fixed_gradient:
+            return r, r
+        constraint = abs(problem.flow_rate(u_) - target_rate) / abs(target_rate)
+        return max(r, constraint), r
+
+    current, residual = merit(u, gradient)
+    previous = current
+    for _ in range(max_iterations):
+        if current <= tol:
+            return u, gradient, True, iteration
+        iteration += 1
+        J = problem.tangent(u)
+        r = problem.residual(u, gradient)
+        problem.linear.prepare(J)
+        # forcing term (Eisenstat-Walker choice 2 style): solve as tightly as the
+        # nonlinear residual has just been reduced, never looser than 0.1
+        forcing = min(0.1, max(0.9 * (current / previous) ** 2, 1e-3 * tol / max(current, 1e-300),
+                               1e-12)) if iteration > start_iteration + 1 else 1e-2
+        previous = current
+        du = np.zeros_like(u)
+        du[problem.free] = problem.linear.solve(-r[problem.free], forcing)
+        d_gradient = 0.0
+        if not fixed_gradient:
+            dg = np.zeros_like(u)
+            dg[problem.free] = problem.linear.solve(-problem.load[problem.free], 1e-10)
+            d_gradient = (target_rate - problem.flow_rate(u) - problem.flow_rate(du)) / \
+                problem.flow_rate(dg)
+            du += d_gradient * dg
+        # the full Newton step when it reduces the residual (quadratic convergence near
+        # the solution), else the minimum of the dissipation along the direction
+        step = 1.0
+        trial_u, trial_g = u + du, gradient + d_gradient
+        trial, trial_residual = merit(trial_u, trial_g)
+        if not trial < 0.9 * current:
+            step = line_search(problem, u, gradient, du, d_gradient)
+            trial_u, trial_g = u + step * du, gradient + step * d_gradient
+            trial, trial_residual = merit(trial_u, trial_g)
+        if not np.isfinite(trial):
+            history.append(Iteration(iteration, "newton", current, 0.0, gradient))
+            return u, gradient, False, iteration
+        u, gradient, current = trial_u, trial_g, trial
+        history.append(Iteration(iteration, "newton", current, step, gradient,
+                                 getattr(problem.model, "regularisation_parameter", None)))
+        if step < 1e-3:
+            # the Newton direction no longer reduces the residual: a Picard step moves on
+            u, gradient = picard_step(problem, u, gradient, target_rate)
+            current, _ = merit(u, gradient)
+            history.append(Iteration(iteration, "picard", current, 1.0, gradient))
+    return u, gradient, current <= tol, iteration
+
+
+def line_search(problem: Problem, u, gradient, du, d_gradient) -> float:
+    """Step length along a Newton direction: the minimum of the dissipation functional.
+
+    For a fixed pressure gradient the problem is the minimisation of the convex
+    functional ``Phi(u) = int a Psi(g) dx + G int a u dx`` with ``Psi' = tau``, whose
+    directional derivative is ``R(u + t du) . du``. With a flow-rate target every step
+    keeps the flow rate (the constraint is linear), so the same derivative applies. The
+    step is 1 unless ``Phi`` rises before it; then a few false-position steps find the
+    root of the derivative.
+    """
+    free = problem.free
+
+    def slope(t):
+        value = float(problem.residual(u + t * du, gradient + t * d_gradient)[free] @ du[free])
+        return value if np.isfinite(value) else math.inf
+
+    s0 = slope(0.0)
+    if not s0 < 0:
+        return 1.0
+    s1 = slope(1.0)
+    if s1 <= 0.25 * abs(s0):
+        return 1.0
+    low, high, s_low, s_high = 0.0, 1.0, s0, s1
+    t = 1.0
+    for _ in range(12):
+        if math.isinf(s_high):
+            t = 0.5 * (low + high)
+        else:
+            t = low - s_low * (high - low) / (s_high - s_low)
+            t = min(max(t, low + 0.02 * (high - low)), high - 0.02 * (high - low))
+        st = slope(t)
+        if abs(st) <= 0.25 * abs(s0):
+            return t
+        if st < 0:
+            low, s_low = t, st
+        else:
+            high, s_high = t, st
+    return t
+
+
+def picard_step(problem: Problem, u, gradient, target_rate, coefficient=None):
+    """Solve with the viscosity frozen at ``u`` (or with a given coefficient field)."""
+    if coefficient is None:
+        coefficient = problem.frozen_coefficient(u)
+    base = problem.boundary_values()
+    problem.linear.prepare(problem.frozen(coefficient))
+    lift = problem.frozen_action(coefficient, base)[problem.free]
+    guess = u[problem.free] if problem.linear.method == "amg" else None
+    if target_rate is None:
+        new = base.copy()
+        new[problem.free] = problem.linear.solve(-lift - gradient * problem.load[problem.free],
+                                                 1e-12, guess)
+        return new, gradient
+    # u = u_walls + G * u_unit: the flow rate is affine in G for a frozen viscosity
+    walls = base.copy()
+    walls[problem.free] = problem.linear.solve(-lift, 1e-12)
+    unit = np.zeros_like(u)
+    unit[problem.free] = problem.linear.solve(-problem.load[problem.free], 1e-12)
+    new_gradient = (target_rate - problem.flow_rate(walls)) / problem.flow_rate(unit)
+    return walls + new_gradient * unit, new_gradient
+
+
+def picard(problem, u, gradient, target_rate, tol, max_iterations, history, start_iteration):
+    iteration = start_iteration
+    for _ in range(max_iterations):
+        residual = problem.relative_residual(u, gradient)
+        constraint = 0.0 if target_rate is None else abs(
+            problem.flow_rate(u) - target_rate) / abs(target_rate)
+        if max(residual, constraint) <= tol:
+            return u, gradient, True, iteration
+        iteration += 1
+        u, gradient = picard_step(problem, u, gradient, target_rate)
+        history.append(Iteration(iteration, "picard", problem.relative_residual(u, gradient),
+                                 1.0, gradient))
+    residual = problem.relative_residual(u, gradient)
+    return u, gradient, residual <= tol, iteration
+
+
+def initial_state(problem: Problem, case: Case, model: rheology.Model, rate: float):
+    """A Newtonian solution with the model's viscosity at the characteristic rate."""
+    reference = rheology.Newtonian(float(model.viscosity(np.array([rate]))[0]))
+    newtonian = problem.sibling(reference)
+    gradient = case.drive.pressure_gradient or 0.0
+    u, gradient = picard_step(newtonian, newtonian.boundary_values(), gradient,
+                               case.drive.flow_rate)
+    if problem.domain.kind != "axial" or model.name == "newtonian":
+        return u, gradient
+    # The Newtonian stress field is the exact one wherever statics fixes the stress (slit
+    # and pipe without moving walls) and close to it elsewhere; the viscosity the model
+    # has at that stress, point by point, gives a start far closer than any constant.
+    rate_n = newtonian.shear_rate(u)
+    stress = reference.viscosity_value * rate_n
+    viscosity = model.viscosity(_rates_at_stress(model, stress, np.maximum(rate_n, 1e-300)))
+    if not np.all(np.isfinite(viscosity)) or not np.all(viscosity > 0):
+        return u, gradient
+    coefficient = problem.area_weight * problem.rate_factor ** 2 * viscosity
+    return picard_step(problem, u, gradient, case.drive.flow_rate, coefficient)
+
+
+def _rates_at_stress(model: rheology.Model, stress, start) -> np.ndarray:
+    """Shear rates at which the model's stress equals ``stress`` (array), by a
+    safeguarded Newton iteration on log(rate), vectorised; a few digits suffice here."""
+    target = np.log(np.maximum(stress, 1e-300))
+    log_rate = np.log(start)
+    with np.errstate(all="ignore"):
+        for _ in range(30):
+            rate = np.exp(log_rate)
+            tau = model.stress(rate)
+            slope = model.stress_derivative(rate) * rate / np.maximum(tau, 1e-300)
+            step = (np.log(np.maximum(tau, 1e-300)) - target) / np.maximum(slope, 1e-3)
+            log_rate = log_rate - np.clip(step, -5.0, 5.0)
+            if np.max(np.abs(step)) < 1e-6:
+                break
+    return np.exp(np.clip(log_rate, -690, 690))
+
+
+#: 2-D structured sections with more unknowns than this are solved first on a mesh half
+#: as fine (recursively), and the result interpolated as the fine mesh's initial state
