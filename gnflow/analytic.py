@@ -1112,3 +1112,147 @@ def eccentric_annulus_newtonian_flow_rate(inner_radius, outer_radius, offset, vi
     series = np.sum(n * np.exp(-n * (beta + alpha)) / np.sinh(n * (beta - alpha)))
     return float(np.pi * (-pressure_gradient) / (8 * viscosity) * (
         ro ** 4 - ri ** 4 - 4 * c ** 2 * M ** 2 / (beta - alpha) - 8 * c ** 2 * M ** 2 * series))
+
+
+# --------------------------------------------------------------------------- helical flow
+
+@dataclass(frozen=True)
+class HelicalReference:
+    """Helical flow in a concentric annulus: axial speed ``w(r)``, angular speed
+    ``omega(r)``, the two stress components and the integral quantities.
+
+    ``torque_per_length`` is what must be applied to the inner cylinder (as in
+    :class:`RotationalReference`); ``axial_constant`` and ``azimuthal_constant`` are the
+    ``A`` and ``B`` of ``tau_rz = G r / 2 + A / r`` and ``tau_r_theta = B / r^2``.
+    """
+
+    velocity: Callable[[np.ndarray], np.ndarray]
+    angular_speed: Callable[[np.ndarray], np.ndarray]
+    axial_stress: Callable[[np.ndarray], np.ndarray]
+    azimuthal_stress: Callable[[np.ndarray], np.ndarray]
+    flow_rate: float
+    pressure_gradient: float
+    torque_per_length: float
+    axial_constant: float
+    azimuthal_constant: float
+
+
+def _panel_rule(lower, upper, panels=48, points=16):
+    """Composite Gauss-Legendre nodes and weights on [lower, upper]."""
+    x, w = np.polynomial.legendre.leggauss(points)
+    edges = np.linspace(lower, upper, panels + 1)
+    half = 0.5 * np.diff(edges)[:, None]
+    nodes = (0.5 * (edges[:-1] + edges[1:]))[:, None] + half * x
+    return nodes.ravel(), (half * w).ravel()
+
+
+def helical_annulus_flow(model, inner_radius, outer_radius, pressure_gradient=None,
+                         inner_angular_speed=0.0, outer_angular_speed=0.0, inner_speed=0.0,
+                         outer_speed=0.0, flow_rate=None, regularised=True):
+    """Helical flow of a generalized Newtonian fluid in a concentric annulus (semi-analytic).
+
+    Steady, laminar, fully developed flow with axial speed ``w(r)`` and angular speed
+    ``omega(r)``; the shear rate is the magnitude of the whole motion,
+    ``gamma = sqrt(w'^2 + (r omega')^2)``, and the stress is ``eta(gamma)`` times the rate
+    of strain. The axial and torque balances, ``(r tau_rz)' = G r`` and
+    ``(r^2 tau_r_theta)' = 0``, give the two stress components up to two constants,
+
+        tau_rz = G r / 2 + A / r,     tau_r_theta = B / r^2,
+
+    and the flow curve at the stress magnitude ``|tau| = sqrt(tau_rz^2 + tau_r_theta^2)``
+    gives ``gamma``; then ``w' = gamma tau_rz / |tau|`` and
+    ``r omega' = gamma tau_r_theta / |tau|``. ``A`` and ``B`` (and ``G``, when a
+    ``flow_rate`` is given instead) are the roots of the wall conditions
+    ``int w' dr = w_o - w_i``, ``int omega' dr = Omega_o - Omega_i`` (and
+    ``Q = pi (R_o^2 w_o - R_i^2 w_i) - pi int r^2 w' dr``), found by Powell's hybrid method
+    with the integrals by 768-point composite Gauss-Legendre quadrature. The torque applied
+    to the inner cylinder per length is ``M = -2 pi B``.
+
+    Derived here from the momentum balances of the helical flow (the same reasoning as
+    Bird, Stewart & Lightfoot, *Transport Phenomena*, sections 2.4 and 3.6, for the two
+    motions alone). A Newtonian fluid decouples exactly into those two textbook flows.
+    Valid for monotone flow curves; ``regularised`` as in :func:`rate_from_stress` (the
+    exact yield-stress inverse has kinks at plug edges, where this quadrature is less
+    accurate). Relative accuracy about 1e-10 for smooth fluids.
+
+    >>> class Linear:
+    ...     def stress(self, rate):
+    ...         return 2.0 * np.asarray(rate, dtype=float)
+    >>> ref = helical_annulus_flow(Linear(), 1.0, 2.0, -8.0, inner_angular_speed=3.0)
+    >>> print(f"{ref.torque_per_length / np.pi:.6f}")   # 4 pi mu W R_i^2 R_o^2 / (R_o^2 - R_i^2)
+    32.000000
+    """
+    Ri, Ro = _radii(inner_radius, outer_radius)
+    if (pressure_gradient is None) == (flow_rate is None):
+        raise ValueError("give exactly one of pressure_gradient and flow_rate")
+    w_i, w_o = _finite("inner_speed", inner_speed), _finite("outer_speed", outer_speed)
+    W_i = _finite("inner_angular_speed", inner_angular_speed)
+    W_o = _finite("outer_angular_speed", outer_angular_speed)
+    r, weight = _panel_rule(Ri, Ro)
+    gap, mean = Ro - Ri, 0.5 * (Ri + Ro)
+    rotation_rate = abs(W_o - W_i) * mean / gap
+
+    def rates(A, B, G, radii):
+        axial, azimuthal = G * radii / 2 + A / radii, B / radii ** 2
+        magnitude = np.hypot(axial, azimuthal)
+        gamma = rate_from_stress(model, magnitude, regularised)
+        ratio = np.divide(gamma, magnitude, out=np.zeros_like(gamma), where=magnitude > 0)
+        return ratio * axial, ratio * azimuthal / radii       # w', omega'
+
+    # scales: a stress from the rotation and the drive, and the rate it gives
+    drive_stress = abs(pressure_gradient) * gap / 2 if pressure_gradient else 0.0
+    if flow_rate is not None:
+        drive_stress = _stress_at_rate(model, 6 * abs(flow_rate) / (np.pi * (Ro**2 - Ri**2)) / gap)
+    stress = max(drive_stress, _stress_at_rate(model, rotation_rate),
+                 _stress_at_rate(model, abs(w_o - w_i) / gap), 1e-300)
+    rate = max(float(rate_from_stress(model, np.array([stress]), True)[0]), 1e-300)
+    mu = stress / rate
+    area = np.pi * (Ro**2 - Ri**2)
+
+    def equations(unknowns):
+        A, B = unknowns[0] * stress * mean, unknowns[1] * stress * mean**2
+        G = pressure_gradient if flow_rate is None else unknowns[2] * stress / gap
+        dw, domega = rates(A, B, G, r)
+        out = [(weight @ dw - (w_o - w_i)) / (rate * gap),
+               (weight @ domega - (W_o - W_i)) / (rate * gap / mean)]
+        if flow_rate is not None:
+            q = np.pi * (Ro**2 * w_o - Ri**2 * w_i) - np.pi * weight @ (r**2 * dw)
+            out.append((q - flow_rate) / (rate * gap * area))
+        return np.array(out)
+
+    # start from the Newtonian solution with the viscosity at the rate scale
+    if flow_rate is None:
+        G0 = pressure_gradient
+    else:
+        unit = annulus_newtonian(Ri, Ro, mu, -1.0, w_i, w_o).flow_rate
+        walls = annulus_newtonian(Ri, Ro, mu, 0.0, w_i, w_o).flow_rate
+        G0 = -(flow_rate - walls) / (unit - walls)
+    A0 = mu * (w_o - w_i - G0 * (Ro**2 - Ri**2) / (4 * mu)) / np.log(Ro / Ri)
+    B0 = -2 * mu * (W_i - W_o) * Ri**2 * Ro**2 / (Ro**2 - Ri**2)
+    guess = [A0 / (stress * mean), B0 / (stress * mean**2)]
+    if flow_rate is not None:
+        guess.append(G0 * gap / stress)
+    from scipy.optimize import root
+    found = root(equations, guess, method="hybr", options={"xtol": 1e-14})
+    if not (found.success or np.max(np.abs(equations(found.x))) < 1e-11):
+        raise RuntimeError(f"helical_annulus_flow: the wall conditions were not met ({found.message})")
+    A, B = found.x[0] * stress * mean, found.x[1] * stress * mean**2
+    G = pressure_gradient if flow_rate is None else found.x[2] * stress / gap
+    nodes, unit_weights = np.polynomial.legendre.leggauss(200)
+
+    def integrated(radii, which, start):
+        radii = _as_array(radii)
+        half = 0.5 * (radii - Ri)[..., None]
+        points = Ri + half * (nodes + 1)
+        derivative = rates(A, B, G, points.ravel())[which].reshape(points.shape)
+        return start + np.sum(derivative * unit_weights * half, axis=-1)
+
+    dw, _ = rates(A, B, G, r)
+    q = np.pi * (Ro**2 * w_o - Ri**2 * w_i) - np.pi * weight @ (r**2 * dw)
+    return HelicalReference(
+        velocity=lambda radii: integrated(radii, 0, w_i),
+        angular_speed=lambda radii: integrated(radii, 1, W_i),
+        axial_stress=lambda radii: G * _as_array(radii) / 2 + A / _as_array(radii),
+        azimuthal_stress=lambda radii: B / _as_array(radii) ** 2,
+        flow_rate=float(q), pressure_gradient=float(G), torque_per_length=float(-2 * np.pi * B),
+        axial_constant=float(A), azimuthal_constant=float(B))

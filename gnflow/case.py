@@ -4,6 +4,30 @@ All checks of user input live here, so that the later stages can trust what they
 A problem raises :class:`gnflow.errors.CaseError` naming the key, the value and what
 was expected; unknown keys are errors with a "did you mean" hint.
 
+Sizes are bounded before anything else looks at a value: a case file of at most
+:data:`MAX_FILE_BYTES`, tables and arrays nested at most :data:`MAX_DEPTH` deep, at most
+:data:`MAX_ITEMS` values in all, strings of units at most 200 characters (see
+:mod:`gnflow.units`), file names at most :data:`MAX_PATH` characters, and integers
+within the float range. What is legal but odd (a deprecated key name, a bare number that
+gives an unusual size) is kept in :attr:`Case.notices`.
+
+Schema notes beyond the README's table:
+
+* ``[fluid.regularisation] method``: ``"papanastasiou"`` (key ``exponent``, the ``m`` of
+  Papanastasiou (1987), J. Rheol. 31, 385, in s), ``"bi-viscous"`` (key
+  ``critical_rate``, in 1/s: the rate below which the fluid is Newtonian with viscosity
+  ``tau_y / critical_rate``, the bi-viscous model of O'Donovan & Tanner (1984),
+  J. Non-Newtonian Fluid Mech. 15, 75-83 (pages recalled from memory)), or ``"none"``:
+  exact yield-stress flow, no parameter keys. With ``"none"``, ``FluidSpec.regularisation
+  == "none"`` and ``FluidSpec.model`` is still a (Papanastasiou) regularised model object,
+  from which the exact method reads the yield stress and the viscous parameters.
+* ``shape = "annulus"`` takes ``[drive] inner_angular_speed`` and
+  ``outer_angular_speed`` (angular speed, default 0) beside its axial drive, at any
+  eccentricity: helical flow. They are kept in ``DriveSpec.inner_angular_speed`` and
+  ``DriveSpec.outer_angular_speed`` (rad/s).
+* ``[mesh] wall_refinement`` (>= 1, default 1): the ratio of the largest cell to the cells
+  at a wall. The former name ``grading`` is still read, with a deprecation notice.
+
 >>> case = Case.from_dict({
 ...     "fluid": {"model": "power-law", "consistency": "2.5 Pa*s^0.45", "flow_index": 0.45},
 ...     "geometry": {"shape": "pipe", "radius": "25 mm"},
@@ -16,7 +40,6 @@ from __future__ import annotations
 
 import copy
 import difflib
-import json
 import math
 import tomllib
 from dataclasses import dataclass, field
@@ -24,7 +47,7 @@ from pathlib import Path
 from typing import Any
 
 from . import rheology
-from .errors import CaseError, check_positive
+from .errors import CaseError, check_positive, shorten, shown_key
 from .units import quantity, si_unit
 
 SHAPES = ("slit", "pipe", "annulus", "coaxial-cylinders", "rectangle", "mesh")
@@ -64,18 +87,37 @@ GEOMETRY_KEYS = {
 }
 MAX_CELLS_1D = 200_000
 MAX_CELLS_2D = 4_000
+#: cells of a generated 2-D section in all: an elongated rectangle or a thin annulus
+#: multiplies mesh.cells by its aspect ratio, and must not ask for millions of cells
+MAX_SECTION_CELLS = 500_000
+#: bounds on the raw input, checked before any value is interpreted
+MAX_FILE_BYTES = 1_000_000
+MAX_DEPTH = 6          # top level -> section -> sub-table -> value: 4 is the deepest legal
+MAX_ITEMS = 10_000
+MAX_PATH = 1024
+MAX_TITLE = 200
+#: geometry lengths, m: powers of a length up to the fourth (flow rates, torques) stay
+#: well inside the float range
+MIN_LENGTH, MAX_LENGTH = 1e-9, 1e5
+#: regularisation methods a case may ask for: those of the rheology models, and exact flow
+REGULARISATION_METHODS = tuple(dict.fromkeys((*rheology.REGULARISATIONS, "none")))
+#: (low, high) of the SI values that a bare number of each dimension usually has; outside
+#: them a bare number gets the notice that bare numbers are SI (common practice, not law:
+#: e.g. a pipe radius above 2 m or a viscosity above 1e5 Pa s is rare in laminar duties)
+PLAUSIBLE_BARE_SI = {
+    "length": (1e-6, 2.0), "velocity": (0.0, 100.0), "time": (1e-6, 1e4),
+    "angular_speed": (0.0, 1e4), "stress": (0.0, 1e5), "pressure_gradient": (0.0, 1e8),
+    "viscosity": (1e-6, 1e5), "consistency": (1e-6, 1e5), "density": (0.05, 2.5e4),
+    "flow_rate": (0.0, 10.0), "flow_rate_per_width": (0.0, 10.0),
+    "molar_energy": (1e3, 1e6), "temperature": (150.0, 1200.0),
+}
 
 
 def _suggest(key: str, allowed) -> str:
+    if len(key) > 60:  # nothing that long is a misspelling of a key
+        return ""
     close = difflib.get_close_matches(key, list(allowed), n=1, cutoff=0.6)
     return f' (did you mean "{close[0]}"?)' if close else ""
-
-
-def _shown(key: str) -> str:
-    """A key as printed in a message: quoted and escaped unless it is plain text."""
-    if key and key.isprintable() and key.strip() == key:
-        return key
-    return json.dumps(key)
 
 
 def _check_keys(table: dict, allowed, where: str) -> None:
@@ -83,9 +125,29 @@ def _check_keys(table: dict, allowed, where: str) -> None:
         if key not in allowed:
             choices = ", ".join(sorted(allowed))
             raise CaseError(f"{where}.{key}" if where else key, message=(
-                f"unknown key {(where + '.') if where else ''}{_shown(key)}"
+                f"unknown key {(where + '.') if where else ''}{shown_key(key)}"
                 f"{_suggest(key, allowed)}; "
                 f"{'[' + where + ']' if where else 'the top level'} takes: {choices}"))
+
+
+def _check_size(mapping: dict) -> None:
+    """Refuse input nested deeper than MAX_DEPTH or holding more than MAX_ITEMS values,
+    walking it without recursion (a document nested a thousand deep must not end in a
+    RecursionError, nor be copied)."""
+    stack, count = [((), mapping)], 0
+    while stack:
+        path, value = stack.pop()
+        count += 1
+        if count > MAX_ITEMS:
+            raise CaseError("case", message=f"the case holds more than {MAX_ITEMS} values; "
+                            "a case file is a few dozen keys")
+        if isinstance(value, (dict, list)):
+            if len(path) >= MAX_DEPTH:
+                key = ".".join(shown_key(str(p), 20) for p in path[:MAX_DEPTH])
+                raise CaseError(key, message=f"{key}: nested more than {MAX_DEPTH} deep; a "
+                                "case file's values are numbers, strings or short lists")
+            items = value.items() if isinstance(value, dict) else enumerate(value)
+            stack.extend((path + (k,), v) for k, v in items)
 
 
 def _table(doc: dict, name: str, required: bool = True) -> dict:
@@ -107,9 +169,13 @@ def _number(table: dict, key: str, where: str, default=...) -> float:
     value = table[key]
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         raise CaseError(f"{where}.{key}", value, "a plain number")
-    if not math.isfinite(value):
+    try:
+        number = float(value)
+    except OverflowError:  # an integer of more than 308 digits
+        raise CaseError(f"{where}.{key}", value, "a number below 1e308 in size") from None
+    if not math.isfinite(number):
         raise CaseError(f"{where}.{key}", value, "a finite number")
-    return float(value)
+    return number
 
 
 def _whole(table: dict, key: str, where: str, default: int, low: int, high: int) -> int:
@@ -160,7 +226,13 @@ def _dimensional(table: dict, key: str, where: str, dimension: str, default=...,
 
 @dataclass(frozen=True)
 class FluidSpec:
-    """The fluid: a rheology model in SI, and what goes with it."""
+    """The fluid: a rheology model in SI, and what goes with it.
+
+    ``regularisation`` (yield-stress models only) is one of
+    :data:`REGULARISATION_METHODS`; ``"none"`` asks for exact yield-stress flow, and then
+    ``model`` is the Papanastasiou-regularised model whose yield stress and viscous
+    parameters the exact method reads.
+    """
 
     model: rheology.Model
     density: float | None = None
@@ -201,6 +273,10 @@ class GeometrySpec:
 
 @dataclass(frozen=True)
 class DriveSpec:
+    """What drives the flow, SI. Axial shapes: one of ``pressure_gradient`` (dp/dz, Pa/m)
+    and ``flow_rate``, and ``wall_speed`` (m/s by wall name). Angular speeds (rad/s):
+    the cylinders of ``coaxial-cylinders``, or an ``annulus``'s walls (helical flow)."""
+
     pressure_gradient: float | None = None
     flow_rate: float | None = None
     wall_speed: dict[str, float] = field(default_factory=dict)
@@ -210,9 +286,17 @@ class DriveSpec:
 
 @dataclass(frozen=True)
 class MeshSpec:
+    """``wall_refinement``: the ratio of the largest cell to the cells at a wall (1 =
+    uniform)."""
+
     cells: int = 200
     degree: int = 2
-    grading: float = 1.0
+    wall_refinement: float = 1.0
+
+    @property
+    def grading(self) -> float:
+        """The former name of :attr:`wall_refinement`, for code not yet moved to it."""
+        return self.wall_refinement
 
 
 @dataclass(frozen=True)
@@ -234,7 +318,9 @@ class Case:
     """A validated case, every value in SI.
 
     ``raw`` keeps the mapping the case was built from, so that a study can change one
-    dotted key and build the case again (see :meth:`with_value`).
+    dotted key and build the case again (see :meth:`with_value`). ``notices`` are one-line
+    remarks on legal but doubtful input (deprecated key names, bare numbers that give an
+    unusual size), for the printed summary and its warnings.
     """
 
     title: str
@@ -246,26 +332,30 @@ class Case:
     output: OutputSpec = OutputSpec()
     source: Path | None = None
     raw: dict = field(default_factory=dict, repr=False, compare=False)
+    notices: tuple[str, ...] = field(default=(), compare=False)
 
     @classmethod
     def from_dict(cls, mapping: dict, source: str | Path | None = None) -> "Case":
         """Build a case from the same structure as the TOML file."""
         if not isinstance(mapping, dict):
             raise CaseError("case", mapping, "a table of sections")
+        _check_size(mapping)
         source = Path(source) if source is not None else None
         _check_keys(mapping, ("title", "fluid", "geometry", "drive", "mesh", "solver",
                               "output"), "")
         title = mapping.get("title", source.stem if source else "untitled case")
-        if not isinstance(title, str):
-            raise CaseError("title", title, "a string")
+        if not isinstance(title, str) or len(title) > MAX_TITLE or not title.isprintable():
+            raise CaseError("title", title, f"one line of printable text of at most "
+                            f"{MAX_TITLE} characters")
         geometry = _parse_geometry(_table(mapping, "geometry"), source)
         fluid = _parse_fluid(_table(mapping, "fluid"))
         drive = _parse_drive(_table(mapping, "drive"), geometry)
-        mesh = _parse_mesh(_table(mapping, "mesh", required=False), geometry)
+        mesh, mesh_notices = _parse_mesh(_table(mapping, "mesh", required=False), geometry)
         solver = _parse_solver(_table(mapping, "solver", required=False))
         output = _parse_output(_table(mapping, "output", required=False))
+        notices = (*mesh_notices, *_bare_number_notices(mapping, fluid, geometry))
         return cls(title, fluid, geometry, drive, mesh, solver, output, source,
-                   copy.deepcopy(mapping))
+                   copy.deepcopy(mapping), notices)
 
     def with_value(self, dotted_key: str, value) -> "Case":
         """A new case with one dotted key (e.g. ``"fluid.flow_index"``) set to ``value``."""
@@ -273,12 +363,20 @@ class Case:
         assign(mapping, dotted_key, value)
         return Case.from_dict(mapping, self.source)
 
+    @property
+    def is_helical(self) -> bool:
+        """An annulus with a rotating wall besides its axial drive."""
+        return self.geometry.shape == "annulus" and (
+            self.drive.inner_angular_speed != 0.0 or self.drive.outer_angular_speed != 0.0)
+
     def to_si(self) -> dict:
         """The interpreted case in SI, as plain data (for ``gnflow check`` and summaries)."""
         fluid = {"model": self.fluid.name, **self.fluid.model.parameters()}
         if self.fluid.density is not None:
             fluid["density"] = self.fluid.density
-        if self.fluid.regularisation:
+        if self.fluid.regularisation == "none":
+            fluid["regularisation"] = {"method": "none"}
+        elif self.fluid.regularisation:
             fluid["regularisation"] = {"method": self.fluid.regularisation,
                                        "parameter": self.fluid.regularisation_parameter
                                        or "auto"}
@@ -294,7 +392,7 @@ class Case:
         drive = {k: v for k, v in self.drive.__dict__.items() if v not in (None, {})}
         if not self.geometry.is_axial:
             drive = {k: v for k, v in drive.items() if "angular" in k}
-        else:
+        elif not (self.geometry.shape == "annulus" and self.is_helical):
             drive = {k: v for k, v in drive.items() if "angular" not in k}
         return {"title": self.title, "fluid": fluid, "geometry": geometry, "drive": drive,
                 "mesh": dict(self.mesh.__dict__), "solver": dict(self.solver.__dict__),
@@ -326,27 +424,46 @@ def load_case(path: str | Path) -> Case:
     error, and naming the key for any bad value.
     """
     path = Path(path)
+    shown = shown_key(str(path), 80)
+    if len(str(path)) > MAX_PATH:
+        raise CaseError(str(path), message=f"{shown}: a case file name of more than "
+                        f"{MAX_PATH} characters")
     try:
-        data = path.read_bytes()
+        if path.exists() and not path.is_dir() and not path.is_file():
+            # a FIFO or a device such as /dev/zero: reading it could block or never end
+            raise CaseError(str(path), message=f"{shown}: not a regular file, expected a "
+                            "case file")
+        with path.open("rb") as handle:
+            data = handle.read(MAX_FILE_BYTES + 1)
     except FileNotFoundError:
-        raise CaseError(str(path), message=f"{path}: no such case file") from None
+        raise CaseError(str(path), message=f"{shown}: no such case file") from None
     except IsADirectoryError:
-        raise CaseError(str(path), message=f"{path}: is a folder, expected a case file") from None
-    except OSError as err:
-        raise CaseError(str(path), message=f"{path}: cannot read ({err.strerror})") from None
+        raise CaseError(str(path), message=f"{shown}: is a folder, expected a case file") from None
+    except (OSError, ValueError) as err:  # ValueError: a NUL character in the name
+        reason = err.strerror if isinstance(err, OSError) and err.strerror else str(err)
+        raise CaseError(str(path), message=f"{shown}: cannot read ({reason})") from None
+    if len(data) > MAX_FILE_BYTES:
+        raise CaseError(str(path), message=f"{shown}: larger than {MAX_FILE_BYTES} bytes; "
+                        "a case file is a few dozen lines")
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError:
-        raise CaseError(str(path), message=f"{path}: not a UTF-8 text file") from None
+        raise CaseError(str(path), message=f"{shown}: not a UTF-8 text file") from None
     if not text.strip():
-        raise CaseError(str(path), message=f"{path}: the case file is empty; it needs "
+        raise CaseError(str(path), message=f"{shown}: the case file is empty; it needs "
                         "[fluid], [geometry] and [drive] sections")
     try:
         mapping = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
-        raise CaseError(str(path), message=f"{path}: TOML syntax error: {err}") from None
+        raise CaseError(str(path), message=f"{shown}: TOML syntax error: {err}") from None
+    except RecursionError:
+        raise CaseError(str(path), message=f"{shown}: arrays or tables nested more than "
+                        f"{MAX_DEPTH} deep") from None
+    except ValueError as err:  # e.g. an integer of more than 4300 digits
+        raise CaseError(str(path), message=f"{shown}: cannot read a value "
+                        f"({str(err).split(':')[0]})") from None
     if not mapping:  # only comments and blank lines
-        raise CaseError(str(path), message=f"{path}: the case file is empty; it needs "
+        raise CaseError(str(path), message=f"{shown}: the case file is empty; it needs "
                         "[fluid], [geometry] and [drive] sections")
     return Case.from_dict(mapping, path)
 
@@ -390,7 +507,9 @@ def _parse_fluid(table: dict) -> FluidSpec:
     method = parameter = None
     if yield_stress_model:
         method, parameter = _parse_regularisation(table.get("regularisation", {}))
-        values["regularisation"] = method
+        # exact flow ("none") still carries a regularised model: the exact method reads
+        # its yield stress and viscous parameters, and estimates start from it
+        values["regularisation"] = "papanastasiou" if method == "none" else method
         # a placeholder until the solver chooses one from the case's scales
         values["regularisation_parameter"] = parameter or 1.0
     rate_range = None
@@ -407,12 +526,12 @@ def _parse_fluid(table: dict) -> FluidSpec:
 
 
 def _parse_temperature(table: dict, model):
-    """Apply a fluid card's temperature law at the case's temperature.
+    """Apply a fluid definition's temperature law at the case's temperature.
 
     ``temperature_law = "arrhenius"``: every viscosity is shifted by
     ``a_T = exp(E_a / R (1/T - 1/T_ref))`` (time-temperature superposition, see
     :func:`gnflow.temperature.at_temperature`). ``"sutherland"`` (Newtonian gases): the
-    card's ``viscosity`` is the value at ``reference_temperature``.
+    definition's ``viscosity`` is the value at ``reference_temperature``.
     """
     from . import temperature as laws
 
@@ -467,10 +586,26 @@ def _parse_temperature(table: dict, model):
 
 
 def _parse_regularisation(table) -> tuple[str, float | None]:
+    """The method and its parameter (None: chosen from the flow's scales).
+
+    ``papanastasiou``: ``exponent`` m (s), Papanastasiou (1987), J. Rheol. 31, 385.
+    ``bi-viscous``: ``critical_rate`` (1/s), below which the fluid is Newtonian with the
+    viscosity ``tau_y / critical_rate``: O'Donovan & Tanner (1984), J. Non-Newtonian Fluid
+    Mech. 15, 75-83 (pages recalled from memory). ``none``: exact yield-stress flow, no
+    parameter.
+    """
     where = "fluid.regularisation"
     if not isinstance(table, dict):
         raise CaseError(where, table, 'a table such as { method = "papanastasiou" }')
-    method = _choice(table, "method", where, rheology.REGULARISATIONS, "papanastasiou")
+    method = _choice(table, "method", where, REGULARISATION_METHODS, "papanastasiou")
+    if method == "none":
+        for key in ("exponent", "critical_rate"):
+            if key in table:
+                raise CaseError(f"{where}.{key}", message=(
+                    f"{where}.{key} does not apply to method = \"none\" (exact yield-stress "
+                    "flow has no regularisation parameter)"))
+        _check_keys(table, ("method",), where)
+        return method, None
     key = "exponent" if method == "papanastasiou" else "critical_rate"
     other = "critical_rate" if key == "exponent" else "exponent"
     if other in table:
@@ -504,10 +639,15 @@ def _parse_geometry(table: dict, source: Path | None) -> GeometrySpec:
             continue
         values[key] = check_positive(f"geometry.{key}",
                                      _dimensional(table, key, "geometry", dimension))
+        if not MIN_LENGTH <= values[key] <= MAX_LENGTH:
+            raise CaseError(f"geometry.{key}", table[key], "a length from 1 nm to 100 km (the "
+                            "areas and moments of larger or smaller sections leave the float "
+                            "range)")
     if shape in ("annulus", "coaxial-cylinders"):
         if values["inner_radius"] >= values["outer_radius"]:
             raise CaseError("geometry.inner_radius", table.get("inner_radius"),
-                            f"a value below geometry.outer_radius ({table.get('outer_radius')!r})")
+                            f"a value below geometry.outer_radius "
+                            f"({shorten(table.get('outer_radius'), 30)})")
     if shape == "annulus":
         e = _number(table, "eccentricity", "geometry", 0.0)
         if not 0.0 <= e < 1.0:
@@ -526,11 +666,19 @@ def _parse_mesh_file(table: dict, source: Path | None) -> dict:
     name = table["file"]
     if not isinstance(name, str) or not name.strip():
         raise CaseError("geometry.file", name, "a file name (string)")
+    if len(name) > MAX_PATH or "\0" in name:
+        raise CaseError("geometry.file", name, f"a file name of at most {MAX_PATH} "
+                        "characters, without NUL characters")
     path = Path(name)
     if not path.is_absolute():
         path = (source.parent if source else Path.cwd()) / path
-    if not path.is_file():
-        raise CaseError("geometry.file", name, f"an existing mesh file (looked for {path})")
+    try:
+        found = path.is_file()
+    except OSError as err:  # e.g. a name part longer than the file system allows
+        raise CaseError("geometry.file", name, f"a readable file name ({err.strerror})") from None
+    if not found:
+        raise CaseError("geometry.file", name, f"an existing mesh file (looked for "
+                        f"{shown_key(str(path), 120)})")
     unit = 1.0
     if "length_unit" in table:
         unit = check_positive("geometry.length_unit",
@@ -552,7 +700,16 @@ def _parse_drive(table: dict, geometry: GeometrySpec) -> DriveSpec:
                             "an angular speed different from drive.outer_angular_speed "
                             "(equal speeds give rigid rotation, no shear)")
         return DriveSpec(inner_angular_speed=inner, outer_angular_speed=outer)
-    _check_keys(table, ("pressure_gradient", "flow_rate", "wall_speed"), where)
+    rotation = ("inner_angular_speed", "outer_angular_speed")
+    if geometry.shape != "annulus":
+        for key in rotation:
+            if key in table:
+                raise CaseError(f"drive.{key}", message=(
+                    f"unknown key drive.{key} for a {geometry.shape}: angular speeds apply "
+                    "to shape = \"annulus\" (helical flow) and \"coaxial-cylinders\""))
+    _check_keys(table, ("pressure_gradient", "flow_rate", "wall_speed", *rotation), where)
+    inner = _dimensional(table, "inner_angular_speed", where, "angular_speed", 0.0)
+    outer = _dimensional(table, "outer_angular_speed", where, "angular_speed", 0.0)
     has_gradient, has_rate = "pressure_gradient" in table, "flow_rate" in table
     if has_gradient == has_rate:
         raise CaseError("drive", message=(
@@ -565,20 +722,21 @@ def _parse_drive(table: dict, geometry: GeometrySpec) -> DriveSpec:
         if gradient == 0 and not any(wall_speed.values()):
             raise CaseError("drive.pressure_gradient", table["pressure_gradient"],
                             "a non-zero pressure gradient, or a wall_speed (nothing drives "
-                            "the flow)")
+                            "the axial flow)")
     else:
         dimension = "flow_rate_per_width" if geometry.shape == "slit" else "flow_rate"
         try:
             rate = _dimensional(table, "flow_rate", where, dimension)
         except CaseError as err:
-            if geometry.shape == "slit":
-                raise CaseError("drive.flow_rate", message=(
-                    f"{err}; a slit's flow rate is per unit width (m^2/s, e.g. "
+            if geometry.shape == "slit" and "has dimension" in str(err):
+                raise CaseError("drive.flow_rate", table["flow_rate"], (
+                    "a slit's flow rate, which is per unit width (m^2/s, e.g. "
                     "\"0.5 L/s/m\")")) from None
             raise
         if rate == 0:
             raise CaseError("drive.flow_rate", table["flow_rate"], "a non-zero flow rate")
-    return DriveSpec(pressure_gradient=gradient, flow_rate=rate, wall_speed=wall_speed)
+    return DriveSpec(pressure_gradient=gradient, flow_rate=rate, wall_speed=wall_speed,
+                     inner_angular_speed=inner, outer_angular_speed=outer)
 
 
 def _parse_wall_speed(table, geometry: GeometrySpec) -> dict[str, float]:
@@ -592,24 +750,92 @@ def _parse_wall_speed(table, geometry: GeometrySpec) -> dict[str, float]:
         for name in table:
             if name not in walls:
                 raise CaseError(f"{where}.{name}", message=(
-                    f"{where}.{_shown(name)}: the {geometry.shape} has no wall named {name!r}"
-                    f"{_suggest(name, walls)}; its walls are: {', '.join(walls)}"))
+                    f"{where}.{shown_key(name)}: the {geometry.shape} has no wall named "
+                    f"{shorten(name)}{_suggest(name, walls)}; its walls are: {', '.join(walls)}"))
     return {name: _dimensional(table, name, where, "velocity") for name in table}
 
 
-def _parse_mesh(table: dict, geometry: GeometrySpec) -> MeshSpec:
-    _check_keys(table, ("cells", "degree", "grading"), "mesh")
+def _parse_mesh(table: dict, geometry: GeometrySpec) -> tuple[MeshSpec, tuple[str, ...]]:
+    """The mesh spec, and the notice for the deprecated key ``grading``."""
+    _check_keys(table, ("cells", "degree", "wall_refinement", "grading"), "mesh")
     one_d = geometry.is_one_dimensional
     high = MAX_CELLS_1D if one_d else MAX_CELLS_2D
     cells = _whole(table, "cells", "mesh", 200 if one_d else 32, 1, high)
     if not one_d and cells < 2:
         raise CaseError("mesh.cells", cells, f"a whole number from 2 to {high}")
+    total = _section_cells(geometry, cells)
+    if total > MAX_SECTION_CELLS:
+        raise CaseError("mesh.cells", cells, f"fewer cells or a less elongated section: "
+                        f"this {geometry.shape} would have {total:.3g} cells in all (at most "
+                        f"{MAX_SECTION_CELLS})")
     degree = _whole(table, "degree", "mesh", 2, 1, 2)
-    grading = _number(table, "grading", "mesh", 1.0)
-    if not 1.0 <= grading <= 100.0:
-        raise CaseError("mesh.grading", grading, "a number from 1 (uniform) to 100: the ratio "
-                        "of the largest cell to the cells at a wall")
-    return MeshSpec(cells, degree, grading)
+    notices: tuple[str, ...] = ()
+    key = "wall_refinement"
+    if "grading" in table:
+        if "wall_refinement" in table:
+            raise CaseError("mesh.grading", message="mesh.grading is the former name of "
+                            "mesh.wall_refinement; give only wall_refinement")
+        key = "grading"
+        notices = ("mesh.grading is deprecated: write mesh.wall_refinement (same meaning, "
+                   "the ratio of the largest cell to the cells at a wall)",)
+    refinement = _number(table, key, "mesh", 1.0)
+    if not 1.0 <= refinement <= 100.0:
+        raise CaseError(f"mesh.{key}", refinement, "a number from 1 (uniform) to 100: the "
+                        "ratio of the largest cell to the cells at a wall")
+    return MeshSpec(cells, degree, refinement), notices
+
+
+def _section_cells(geometry: GeometrySpec, cells: int) -> float:
+    """Cells (quadrilaterals) of the structured 2-D section :mod:`gnflow.geometry` builds
+    for ``cells`` across the smallest dimension; ``cells`` for other shapes."""
+    g = geometry  # in floats: an aspect ratio of 1e300 must give a large number, not fail
+    if g.shape == "rectangle":
+        small = min(g.width, g.height)
+        return max(cells * g.width / small, 1.0) * max(cells * g.height / small, 1.0)
+    if g.shape == "annulus" and g.eccentricity > 0:
+        around = math.pi * (g.inner_radius + g.outer_radius) / (g.outer_radius - g.inner_radius)
+        return max(around * cells, 12.0) * cells
+    return float(cells)
+
+
+def _bare_number_notices(mapping: dict, fluid: FluidSpec, geometry: GeometrySpec):
+    """A notice for each bare number (read as SI) outside the usual range of its kind.
+
+    Run on a case that has already validated, so every value looked at is a finite
+    number or a string; only bare numbers are judged: a value with units says what the
+    user meant.
+    """
+    dimensional = {"geometry": {k: d for k, d in GEOMETRY_KEYS[geometry.shape].items() if d},
+                   "fluid": {k: d for k, (d, _) in MODEL_KEYS[fluid.name].items()
+                             if d != "dimensionless"},
+                   "drive": {"pressure_gradient": "pressure_gradient",
+                             "flow_rate": "flow_rate_per_width" if geometry.shape == "slit"
+                             else "flow_rate",
+                             "inner_angular_speed": "angular_speed",
+                             "outer_angular_speed": "angular_speed"}}
+    dimensional["fluid"].update(density="density", temperature="temperature",
+                                reference_temperature="temperature",
+                                activation_energy="molar_energy")
+    checked = [(f"{section}.{key}", mapping[section][key], dimension)
+               for section, keys in dimensional.items() for key, dimension in keys.items()
+               if key in mapping.get(section, {})]
+    walls = mapping.get("drive", {}).get("wall_speed", {})
+    checked += [(f"drive.wall_speed.{shown_key(name)}", speed, "velocity")
+                for name, speed in walls.items()]
+    notices = []
+    for key, value, dimension in checked:
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or value == 0:
+            continue
+        low, high = PLAUSIBLE_BARE_SI[dimension]
+        size = abs(float(value))
+        if low <= size <= high:
+            continue
+        unit = si_unit(dimension, getattr(fluid.model, "flow_index", 1.0)) or "(no unit)"
+        notices.append(f"{key} = {shorten(value)} is a bare number, read as {float(value):g} {unit}: "
+                       f"unusually {'large' if size > high else 'small'} for a "
+                       f"{dimension.replace('_', ' ')}; bare numbers are SI, so give units "
+                       "if another unit was meant")
+    return tuple(notices)
 
 
 def _parse_solver(table: dict) -> SolverSpec:

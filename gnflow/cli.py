@@ -7,6 +7,10 @@ converged; 130 interrupted.
 from __future__ import annotations
 
 import argparse
+import contextlib
+import difflib
+import io
+import re
 import sys
 from importlib import resources
 from pathlib import Path
@@ -14,11 +18,48 @@ from pathlib import Path
 from .errors import CaseError
 
 DEMO_CASE = "paste_slit_die.toml"
+QUIET_HELP = "print only warnings and errors"
+
+
+def _example_names() -> list[str]:
+    """The bundled example cases, without the .toml suffix."""
+    folder = resources.files("gnflow").joinpath("examples")
+    return sorted(p.name.removesuffix(".toml") for p in folder.iterdir()
+                  if p.name.endswith(".toml"))
+
+
+#: a value such as "-1 kPa/m" or "-2e3" after an option is a value, not an option: none of
+#: gnflow's options starts with a digit or a point
+_NEGATIVE_VALUE = re.compile(r"^-\.?\d")
 
 
 class _Parser(argparse.ArgumentParser):
+    """argparse with gnflow's manners: one-line errors with a "did you mean", and
+    negative values with units accepted after an option."""
+
+    def __init__(self, *args, **kwargs):
+        kwargs.setdefault("allow_abbrev", False)  # "--ou" must not silently mean "--out"
+        super().__init__(*args, **kwargs)
+        self._negative_number_matcher = _NEGATIVE_VALUE
+
+    def _all_names(self) -> list[str]:
+        """Every option and subcommand name of this parser and its subcommands."""
+        names = list(self._option_string_actions)
+        for action in self._actions:
+            if isinstance(action, argparse._SubParsersAction):
+                for name, sub in action.choices.items():
+                    names.append(name)
+                    names += sub._all_names()
+        return names
+
     def error(self, message):  # argparse's own errors: exit 2 with one line
-        self.exit(2, f"gnflow: error: {message}\n")
+        words = re.findall(r"(?:^|\s|')(-{0,2}[A-Za-z][\w-]*)", message.split(":", 1)[-1])
+        known = self._all_names()
+        hints = [difflib.get_close_matches(w, known, n=1, cutoff=0.6) for w in words
+                 if w not in known]
+        hint = next((h[0] for h in hints if h), None)
+        suffix = f" (did you mean {hint}?)" if hint else ""
+        self.exit(2, f"gnflow: error: {message}{suffix}\n")
 
 
 def _build_parser() -> argparse.ArgumentParser:
@@ -28,42 +69,71 @@ def _build_parser() -> argparse.ArgumentParser:
     run = sub.add_parser("run", help="solve a case file and write its results")
     run.add_argument("case", help="case file (TOML)")
     run.add_argument("--out", help="results folder (default results/<case file stem>/)")
-    run.add_argument("--quiet", action="store_true", help="print only warnings and errors")
+    run.add_argument("--quiet", action="store_true", help=QUIET_HELP)
     check = sub.add_parser("check", help="validate a case file and print it in SI units")
-    check.add_argument("case")
+    check.add_argument("case", help="case file (TOML)")
+    check.add_argument("--quiet", action="store_true", help="print only errors")
     demo = sub.add_parser("demo", help="run a bundled example case")
     demo.add_argument("--out", help="results folder (default results/demo/)")
     demo.add_argument("--list", action="store_true", help="list the bundled examples")
-    demo.add_argument("--example", help="name of a bundled example (default: %s)" % DEMO_CASE)
+    demo.add_argument("--example", metavar="NAME", help=(
+        f"a bundled example, with or without .toml; one of: {', '.join(_example_names())} "
+        f"(default {DEMO_CASE.removesuffix('.toml')})"))
+    demo.add_argument("--quiet", action="store_true", help=QUIET_HELP)
     verify = sub.add_parser("verify", help="mesh-convergence study of a case")
-    verify.add_argument("case")
-    verify.add_argument("--levels", type=int, default=4, help="number of meshes (default 4)")
-    verify.add_argument("--ratio", type=float, default=2.0, help="refinement ratio (default 2)")
+    verify.add_argument("case", help="case file (TOML)")
+    verify.add_argument("--levels", type=int, default=4,
+                        help="number of meshes, 2 to 8 (default 4)")
+    verify.add_argument("--ratio", type=float, default=2.0,
+                        help="refinement ratio between meshes, > 1 (default 2)")
     verify.add_argument("--out", help="results folder (default results/<case stem>-verify/)")
+    verify.add_argument("--quiet", action="store_true", help=QUIET_HELP)
     sweep = sub.add_parser("sweep", help="solve a grid of cases varying dotted case keys")
-    sweep.add_argument("case")
-    sweep.add_argument("--vary", action="append", required=True, metavar="KEY=START:STOP:COUNT",
-                       help="e.g. drive.pressure_gradient=-1kPa/m:-10kPa/m:10 (repeat for a grid)")
+    sweep.add_argument("case", help="case file (TOML)")
+    sweep.add_argument("--vary", action="append", required=True, metavar="KEY=FROM..TO",
+                       help="a key and the ends of its range, e.g. "
+                            "drive.pressure_gradient=-1kPa/m..-10kPa/m (repeat for a grid; "
+                            "the older KEY=START:STOP:COUNT is still read)")
+    sweep.add_argument("--points", type=int, action="append", metavar="N",
+                       help="values per --vary, ends included (default 5); once for all, "
+                            "or once per --vary in order")
     sweep.add_argument("--log", action="store_true", help="geometric spacing")
     group = sweep.add_mutually_exclusive_group()
     group.add_argument("--workers", type=int, help="local worker processes (default: cores)")
     group.add_argument("--scheduler", help="address of a dask.distributed scheduler")
-    sweep.add_argument("--plot", help="output to plot against the first varied key")
+    sweep.add_argument("--plot", action="append", metavar="COLUMN",
+                       help="summary column to plot against the first varied key, e.g. "
+                            "flow_rate, pressure_drop_per_length, unyielded_fraction, "
+                            "max_velocity, wall_shear_rate_mean, torque_per_length "
+                            "(repeatable; default: the response of the varied drive)")
     sweep.add_argument("--out", help="results folder (default results/<case stem>-sweep/)")
-    curve = sub.add_parser("flow-curve", help="flow rate against pressure gradient, for pump "
-                           "matching")
-    curve.add_argument("case")
-    curve.add_argument("--from", dest="start", required=True, help="first value, with units")
-    curve.add_argument("--to", dest="stop", required=True, help="last value, with units")
-    curve.add_argument("--points", type=int, default=25, help="number of points (default 25)")
-    curve.add_argument("--by", choices=("pressure_gradient", "flow_rate"),
-                       default="pressure_gradient", help="which quantity the range is of")
-    curve.add_argument("--log", action="store_true", help="geometric spacing")
-    curve.add_argument("--out", help="results folder (default results/<case stem>-flow-curve/)")
-    fit = sub.add_parser("fit", help="fit viscosity models to flow-curve data (CSV)")
-    fit.add_argument("data", help="CSV with unit-labelled columns, e.g. 'shear_rate [1/s]'")
-    fit.add_argument("--models", nargs="+", help="models to fit (default: all)")
+    sweep.add_argument("--quiet", action="store_true", help=QUIET_HELP)
+    for name, deprecated in (("system-curve", False), ("flow-curve", True)):
+        curve = sub.add_parser(name, help=(
+            "deprecated name of system-curve" if deprecated else
+            "pressure drop per length against flow rate of a passage, for pump matching"))
+        curve.add_argument("case", help="case file (TOML) of an axial passage")
+        curve.add_argument("--from", dest="start", required=True,
+                           help="first value, with units (e.g. \"-1 kPa/m\" or \"0.5 L/s\")")
+        curve.add_argument("--to", dest="stop", required=True, help="last value, with units")
+        curve.add_argument("--points", type=int, default=25, help="number of points (default 25)")
+        curve.add_argument("--by", choices=("pressure_gradient", "flow_rate"),
+                           default="pressure_gradient",
+                           help="which quantity the range is of: pressure_gradient (dp/dz, "
+                                "default) or flow_rate")
+        curve.add_argument("--log", action="store_true", help="geometric spacing")
+        curve.add_argument("--out", help="results folder (default "
+                                         "results/<case stem>-system-curve/)")
+        curve.add_argument("--quiet", action="store_true", help=QUIET_HELP)
+    fit = sub.add_parser("fit", help="fit viscosity models to measured flow-curve data (CSV)")
+    fit.add_argument("data", help="CSV with unit-labelled columns, e.g. 'shear_rate [1/s]' "
+                                  "and 'shear_stress [Pa]' or 'viscosity [mPa*s]'")
+    fit.add_argument("--models", nargs="+", metavar="MODEL",
+                     help="models to fit (default: every one the data can determine): "
+                          "newtonian, power-law, carreau, carreau-yasuda, cross, bingham, "
+                          "herschel-bulkley")
     fit.add_argument("--out", help="results folder (default results/<data stem>-fit/)")
+    fit.add_argument("--quiet", action="store_true", help=QUIET_HELP)
     return parser
 
 
@@ -76,32 +146,102 @@ def _fmt(value, unit="", digits=5) -> str:
     return f"{text} {unit}".rstrip()
 
 
+_DIRECTION_WORDS = {"+z": "toward +z", "-z": "toward -z", "none": "none (no net flow)"}
+
+
+def _axial_rows(summary: dict) -> list[tuple[str, str]]:
+    per_width = summary["shape"] == "slit"
+    power_unit = "W/m^2" if per_width else "W/m"
+    rows = [
+        ("flow direction", _DIRECTION_WORDS[summary["flow_direction"]]
+         + "; speeds below are magnitudes"),
+        ("pressure gradient dp/dz", _fmt(summary["pressure_gradient"], "Pa/m")),
+        ("pressure drop per length", _fmt(summary["pressure_drop_per_length"], "Pa/m")
+         + " (along the flow; negative: pressure rises)"),
+        ("flow rate", _fmt(abs(summary["flow_rate"]), "m^2/s (per unit width)" if per_width
+                           else "m^3/s")),
+        ("mean velocity", _fmt(summary["mean_velocity"], "m/s")),
+        ("peak velocity", _fmt(summary["max_velocity"], "m/s")),
+        ("hydraulic diameter", _fmt(summary["hydraulic_diameter"], "m")),
+    ]
+    power = summary["power_per_length"]
+    if "pumping_power_per_length" in summary:
+        rows.append(("pumping power per length", _fmt(summary["pumping_power_per_length"],
+                                                      power_unit)))
+    if power["walls"]:
+        if "pumping_power_per_length" not in summary:
+            rows.append(("pressure work per length", _fmt(power["pressure"], power_unit)))
+        rows.append(("moving-wall work per length", _fmt(power["walls"], power_unit)))
+    start = summary.get("flow_start_pressure_gradient")
+    if start:
+        rows.append(("flow starts at |dp/dz|", _fmt(start["value"], "Pa/m")
+                     + f"  ({start['source']})"))
+    return rows
+
+
+def _wall_rows(summary: dict) -> list[tuple[str, str]]:
+    stress, rate = summary["wall_shear_stress"], summary["wall_shear_rate"]
+    directions = stress.get("force_direction", {})
+    moving = summary.get("moving_walls", ())
+    flow = summary.get("flow_direction")
+    rows = [("wall shear stress", "magnitudes; per wall = |axial force on it| / perimeter"
+             if "flow_rate" in summary else "magnitudes, azimuthal, on each cylinder")]
+    for name, value in stress["per_wall"].items():
+        text = _fmt(value, "Pa")
+        direction = directions.get(name)
+        if direction in ("+z", "-z") and flow in ("+z", "-z") and direction != flow:
+            why = "the moving wall drives the flow" if name in moving else \
+                "backflow along this wall"
+            text += f"  (force on the wall toward {direction}, against the flow: {why})"
+        rows.append((f"  {name}", text))
+    rows += [("  mean, max", f"{_fmt(stress['mean'], 'Pa')}, {_fmt(stress['max'], 'Pa')}")]
+    for name, value in rate["per_wall"].items():
+        rows.append((f"wall shear rate, {name}", _fmt(value, "1/s")))
+    return rows
+
+
+def _dimensionless_rows(summary: dict) -> list[tuple[str, str]]:
+    rows = []
+    if "reynolds_number" in summary:
+        rows.append(("Reynolds number", _fmt(summary["reynolds_number"], "", 4)
+                     + f"  ({summary['reynolds_definition']})"))
+    if "plastic_reynolds_number" in summary:
+        rows += [("plastic Reynolds number", _fmt(summary["plastic_reynolds_number"], "", 4)
+                  + "  (rho V D_h / mu_p)"),
+                 ("Hedstrom number", _fmt(summary["hedstrom_number"], "", 4)
+                  + "  (rho tau_y D_h^2 / mu_p^2)")]
+    if "fanning_friction_factor" in summary:
+        rows.append(("Fanning friction factor", _fmt(summary["fanning_friction_factor"], "", 4)))
+    if "taylor_number" in summary:
+        rows.append(("Taylor number", _fmt(summary["taylor_number"], "", 4)))
+    if "laminar_limit" in summary:
+        limit = summary["laminar_limit"]
+        compared = {"plastic_reynolds_number": "plastic Reynolds number"}.get(
+            limit["compared"], "Reynolds number")
+        rows.append(("laminar check", f"{summary['laminar_check']}: {compared} against "
+                     f"{_fmt(limit['reynolds_number'], '', 4)} ({limit['criterion']})"))
+    elif "taylor_number" in summary:
+        rows.append(("laminar check", f"{summary['laminar_check']}: Taylor number against "
+                     "1708 (narrow gap, Taylor 1923)"))
+    elif "laminar_check" in summary:
+        rows.append(("laminar check", summary["laminar_check"]))
+    return rows
+
+
 def format_summary(summary: dict) -> str:
-    """The printed summary: key results with units, warnings, assumptions, caution."""
+    """The printed summary: key results with units, notes, warnings and assumptions.
+
+    The cautions come separately (:func:`format_cautions`), after the list of files, so
+    that the printout ends with them."""
     lines = [f"gnflow: {summary['title']}",
              f"  {summary['model']} fluid, {summary['shape']}; {summary['cells']} cells, "
              f"P{summary['degree']}, {summary['dofs']} unknowns",
              f"  solver: {summary['message']}"]
-    rows = []
-    if "flow_rate" in summary:
-        per_width = summary["shape"] == "slit"
-        rows += [
-            ("pressure gradient dp/dz", _fmt(summary["pressure_gradient"], "Pa/m")),
-            ("flow rate", _fmt(summary["flow_rate"], "m^2/s (per unit width)" if per_width
-                               else "m^3/s")),
-            ("mean velocity", _fmt(summary["mean_velocity"], "m/s")),
-            ("max velocity", _fmt(summary["max_velocity"], "m/s")),
-            ("hydraulic diameter", _fmt(summary["hydraulic_diameter"], "m")),
-            ("pumping power per length", _fmt(summary["pumping_power_per_length"],
-                                              "W/m^2" if per_width else "W/m")),
-        ]
+    rows = _axial_rows(summary) if "flow_rate" in summary else []
     if "torque_per_length" in summary:
         rows += [("torque per length (inner)", _fmt(summary["torque_per_length"], "N*m/m")),
                  ("power per length", _fmt(summary["power_per_length"], "W/m"))]
-    for name, value in summary["wall_shear_stress"]["per_wall"].items():
-        rows.append((f"wall shear stress, {name}", _fmt(value, "Pa")))
-    for name, value in summary["wall_shear_rate"]["per_wall"].items():
-        rows.append((f"wall shear rate, {name}", _fmt(value, "1/s")))
+    rows += _wall_rows(summary)
     if "unyielded_fraction" in summary:
         rows.append(("unyielded area fraction", _fmt(summary["unyielded_fraction"], "", 4)))
     if summary.get("regularisation"):
@@ -110,19 +250,18 @@ def format_summary(summary: dict) -> str:
                      + f" [{r['chosen']}]"))
         if r.get("error_estimate") is not None:
             rows.append(("regularisation error (est.)", f"{100 * r['error_estimate']:.3g} %"))
-    if "reynolds_number" in summary:
-        rows += [("Reynolds number", _fmt(summary["reynolds_number"], "", 4)
-                  + f"  ({summary['reynolds_definition']})"),
-                 ("Fanning friction factor", _fmt(summary["fanning_friction_factor"], "", 4))]
-    if "taylor_number" in summary:
-        rows.append(("Taylor number", _fmt(summary["taylor_number"], "", 4)))
+    rows += _dimensionless_rows(summary)
     width = max(len(r[0]) for r in rows)
     lines += [f"  {name:<{width}}  {value}" for name, value in rows]
-    for warning in summary["warnings"]:
-        lines.append(f"  WARNING: {warning}")
+    lines += [f"  note: {note}" for note in summary.get("notes", ())]
+    lines += [f"  WARNING: {warning}" for warning in summary["warnings"]]
     lines.append(f"  assumes: {summary['assumptions']}")
-    lines.append(f"  caution: {summary['caution']}")
     return "\n".join(lines)
+
+
+def format_cautions(cautions) -> str:
+    """The caution lines that end every printout of design numbers."""
+    return "\n".join(f"  caution: {text}" for text in cautions)
 
 
 def _progress_line(entry) -> None:
@@ -134,26 +273,27 @@ def _progress_line(entry) -> None:
 
 
 def _run_case(case_path, out, quiet: bool) -> int:
+    from . import solve
     from .case import load_case
     from .export import write_outputs
-    from .solver import solve
 
     case = load_case(case_path)
     out_dir = Path(out) if out else Path("results") / Path(case_path).stem
     progress = _progress_line if sys.stderr.isatty() and not quiet else None
-    solution = solve(case, progress=progress)
+    results = solve(case, progress=progress)
     if progress:
         print(file=sys.stderr)
-    summary = solution.summary()
-    written = write_outputs(solution, summary, out_dir)
+    summary = results.summary()
+    written = write_outputs(results, summary, out_dir)
     if quiet:
         for warning in summary["warnings"]:
             print(f"WARNING: {warning}", file=sys.stderr)
     else:
         print(format_summary(summary))
         print(f"  wrote {out_dir}/: {', '.join(written)}")
-    if not solution.converged:
-        print(f"gnflow: {solution.message}", file=sys.stderr)
+        print(format_cautions(summary["cautions"]))
+    if not results.converged:
+        print(f"gnflow: {results.message}", file=sys.stderr)
         return 3
     return 0
 
@@ -202,24 +342,35 @@ def _check(case_path) -> int:
     from .case import load_case
 
     case = load_case(case_path)
+    if case.geometry.shape == "mesh":  # read and check the mesh file as run would
+        from .meshfile import read_case_section
+        read_case_section(case.geometry, case.drive.wall_speed)
     print(f"{case_path}: valid. Interpreted in SI units:")
     print(format_case(case))
+    for notice in case.notices:
+        print(f"  notice: {notice}")
     return 0
 
 
 def _demo(args) -> int:
-    examples = sorted(p.name for p in resources.files("gnflow").joinpath("examples").iterdir()
-                      if p.name.endswith(".toml"))
+    examples = _example_names()
     if args.list:
         print("\n".join(examples))
         return 0
-    name = args.example or DEMO_CASE
+    name = (args.example or DEMO_CASE).removesuffix(".toml")
     if name not in examples:
-        raise CaseError("--example", name, "one of " + ", ".join(examples))
-    with resources.as_file(resources.files("gnflow").joinpath("examples", name)) as path:
+        close = [e for e in examples if name and name in e][:1] or difflib.get_close_matches(
+            name, examples, n=1)
+        hint = f"did you mean {close[0]}? " if close else ""
+        raise CaseError("--example", name, message=(
+            f"--example {name!r}: no such bundled example; {hint}"
+            "'gnflow demo --list' lists them"))
+    with resources.as_file(resources.files("gnflow").joinpath("examples", name + ".toml")) \
+            as path:
         out = args.out or str(Path("results") / "demo")
-        print(f"gnflow demo: running the bundled example {name}")
-        return _run_case(path, out, False)
+        if not args.quiet:
+            print(f"gnflow demo: running the bundled example {name}")
+        return _run_case(path, out, args.quiet)
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -229,23 +380,31 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "run":
             return _run_case(args.case, args.out, args.quiet)
         if args.command == "check":
+            if args.quiet:
+                with contextlib.redirect_stdout(io.StringIO()):
+                    return _check(args.case)
             return _check(args.case)
         if args.command == "demo":
             return _demo(args)
         if args.command == "verify":
             from .verify import run_verify_command
-            return run_verify_command(args.case, args.levels, args.ratio, args.out)
+            return run_verify_command(args.case, args.levels, args.ratio, args.out,
+                                      quiet=args.quiet)
         if args.command == "sweep":
             from .sweep import run_sweep_command
             return run_sweep_command(args.case, args.vary, args.log, args.workers,
-                                     args.scheduler, args.out, args.plot)
-        if args.command == "flow-curve":
-            from .sweep import run_flow_curve_command
-            return run_flow_curve_command(args.case, args.start, args.stop, args.points,
-                                          args.by, args.out, args.log)
+                                     args.scheduler, args.out, args.plot, args.points,
+                                     quiet=args.quiet)
+        if args.command in ("system-curve", "flow-curve"):
+            from .sweep import run_system_curve_command
+            if args.command == "flow-curve":
+                print("gnflow: note: flow-curve is deprecated (a rheologist's flow curve is "
+                      "stress against shear rate); use system-curve", file=sys.stderr)
+            return run_system_curve_command(args.case, args.start, args.stop, args.points,
+                                            args.by, args.out, args.log, quiet=args.quiet)
         if args.command == "fit":
             from .fit import run_fit_command
-            return run_fit_command(args.data, args.models, args.out)
+            return run_fit_command(args.data, args.models, args.out, quiet=args.quiet)
     except CaseError as err:
         print(f"gnflow: error: {err}", file=sys.stderr)
         return 2

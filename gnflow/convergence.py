@@ -14,7 +14,11 @@ Functions that take three or more levels accept them in any order and sort them 
 
 Sources:
 
-* L. F. Richardson (1911), Phil. Trans. R. Soc. A 210, 307: the deferred approach to the limit.
+* L. F. Richardson (1911), Phil. Trans. R. Soc. A 210, 307: extrapolation of
+  finite-difference solutions to zero step size.
+* L. F. Richardson & J. A. Gaunt (1927), "The deferred approach to the limit", Phil. Trans.
+  R. Soc. A 226, 299 (first page recalled from memory): the extrapolation in its general
+  form, the basis of :func:`richardson_extrapolate`.
 * P. J. Roache (1998), *Verification and Validation in Computational Science and
   Engineering*, Hermosa: the grid convergence index with safety factor 1.25 for three or
   more meshes (3.0 for two).
@@ -40,9 +44,10 @@ from scipy.optimize import brentq
 ROACHE_SAFETY_FACTOR = 1.25
 """Roache's safety factor for a study of three or more meshes (3.0 is his value for two)."""
 
-# Differences this small, relative to the values, are round-off: the apparent order is then
-# undefined rather than huge.
-_ROUND_OFF = 4 * np.finfo(float).eps
+#: Differences this small, relative to the values, are round-off: the apparent order is
+#: then undefined rather than huge. A study of solutions that are themselves only as exact
+#: as a solver tolerance passes a larger floor (``noise``) to the functions below.
+ROUND_OFF = 4 * np.finfo(float).eps
 
 _FIXED_POINT_ITERATIONS = 200
 _FIXED_POINT_TOLERANCE = 1e-13
@@ -67,14 +72,15 @@ def representative_cell_size(cells, dimension: int, measure: float = 1.0):
     return (measure / cells) ** (1.0 / dimension)
 
 
-def observed_orders(h, errors):
+def observed_orders(h, errors, floor: float = 0.0):
     """Observed order of convergence between consecutive levels.
 
     ``p_i = ln(|e_{i-1}| / |e_i|) / ln(h_{i-1} / h_i)`` for ``i >= 1``; ``p_0`` is NaN.
     The levels are taken in the order given (coarse to fine or fine to coarse gives the
     same orders). ``errors`` are errors against a known exact value (their magnitudes are
-    used); a zero or non-finite error, or two equal sizes, gives NaN for the orders that
-    involve it. Without an exact value, use :func:`grid_convergence_index` instead.
+    used); an error at or below ``floor`` (round-off: no order can be read from it), a
+    non-finite error, or two equal sizes give NaN for the orders that involve it.
+    Without an exact value, use :func:`grid_convergence_index` instead.
 
     Valid where the error behaves like ``C h^p``, i.e. in the asymptotic range; the orders
     approach the formal order of the discretisation there.
@@ -93,13 +99,15 @@ def observed_orders(h, errors):
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio_e = errors[:-1] / errors[1:]
         ratio_h = h[:-1] / h[1:]
-        usable = (errors[:-1] > 0) & (errors[1:] > 0) & np.isfinite(ratio_e) & (ratio_h != 1)
+        usable = ((errors[:-1] > floor) & (errors[1:] > floor) & np.isfinite(ratio_e)
+                  & (ratio_h != 1))
         orders[1:][usable] = np.log(ratio_e[usable]) / np.log(ratio_h[usable])
     return orders
 
 
 def richardson_extrapolate(h_fine, value_fine, h_coarse, value_coarse, order):
-    """Richardson extrapolation of two solutions to ``h -> 0``.
+    """Richardson extrapolation of two solutions to ``h -> 0`` (Richardson & Gaunt 1927,
+    "The deferred approach to the limit", Phil. Trans. R. Soc. A 226).
 
     ``phi_ext = phi_f + (phi_f - phi_c) / (r^p - 1)`` with ``r = h_coarse / h_fine``,
     which is Celik et al. (2008), eq. (6): ``(r^p phi_f - phi_c) / (r^p - 1)``.
@@ -140,7 +148,9 @@ class ThreeGridEstimate:
     * ``safety_factor``: ``Fs``;
     * ``converging``: the apparent order is positive;
     * ``oscillatory``: ``eps32 / eps21 < 0``;
-    * ``note``: one line saying what kind of sequence this is and what that means.
+    * ``note``: one line saying what kind of sequence this is and what that means;
+    * ``round_off``: the differences are at round-off level ("converged to round-off"):
+      there is no order and no GCI to read, and none is needed.
 
     Quantities that are meaningless for a non-converging sequence are NaN.
     """
@@ -160,6 +170,7 @@ class ThreeGridEstimate:
     converging: bool
     oscillatory: bool
     note: str
+    round_off: bool = False
 
 
 def _log_abs_power_minus_sign(log_ratio: float, order: float, sign: float) -> float:
@@ -228,8 +239,8 @@ def _sorted_levels(h, values, minimum: int) -> tuple[np.ndarray, np.ndarray]:
     return h, values
 
 
-def grid_convergence_index(h, values, safety_factor: float = ROACHE_SAFETY_FACTOR
-                           ) -> ThreeGridEstimate:
+def grid_convergence_index(h, values, safety_factor: float = ROACHE_SAFETY_FACTOR,
+                           noise: float = ROUND_OFF) -> ThreeGridEstimate:
     """Discretisation uncertainty of the finest of three solutions (Celik et al. 2008).
 
     ``h`` and ``values`` hold three representative cell sizes (see
@@ -252,7 +263,9 @@ def grid_convergence_index(h, values, safety_factor: float = ROACHE_SAFETY_FACTO
     ``|eps21| >= |eps32|``) is flagged as not converging, and ``phi_ext21``, ``e_ext21``
     and the GCI are NaN. A zero difference leaves ``p`` undefined (NaN): it means either
     an exact solution or an oscillation that happens to cross, and the paper advises
-    against applying the procedure then.
+    against applying the procedure then. Differences at or below ``noise`` times the
+    largest value (default :data:`ROUND_OFF`; a study passes its solver's noise level)
+    count as zero: such a sequence has "converged to round-off" (``round_off`` true).
 
     Valid in the asymptotic range, where the error behaves like ``C h^p``; an apparent
     order far from the formal order of the method says the meshes are not there yet.
@@ -275,7 +288,8 @@ def grid_convergence_index(h, values, safety_factor: float = ROACHE_SAFETY_FACTO
     nan = float("nan")
     approximate_relative_error = abs(eps21 / phi1) if phi1 != 0 else nan
 
-    def estimate(order, extrapolated, extrapolated_error, gci, converging, oscillatory, note):
+    def estimate(order, extrapolated, extrapolated_error, gci, converging, oscillatory, note,
+                 round_off=False):
         return ThreeGridEstimate(
             h=(h1, h2, h3), values=(phi1, phi2, phi3),
             refinement_ratio_21=r21, refinement_ratio_32=r32,
@@ -284,13 +298,19 @@ def grid_convergence_index(h, values, safety_factor: float = ROACHE_SAFETY_FACTO
             approximate_relative_error=approximate_relative_error,
             extrapolated_relative_error=extrapolated_error, gci_fine=gci,
             safety_factor=float(safety_factor),
-            converging=converging, oscillatory=oscillatory, note=note)
+            converging=converging, oscillatory=oscillatory, note=note, round_off=round_off)
 
-    round_off = _ROUND_OFF * max(abs(phi1), abs(phi2), abs(phi3))
-    if abs(eps21) <= round_off or abs(eps32) <= round_off:
-        which = ("all three values agree" if abs(eps21) <= round_off and abs(eps32) <= round_off
-                 else "the two finest values agree" if abs(eps21) <= round_off
+    if not (noise >= 0 and math.isfinite(noise)):
+        raise ValueError(f"noise = {noise!r}: expected a finite number >= 0")
+    floor = max(noise, ROUND_OFF) * max(abs(phi1), abs(phi2), abs(phi3))
+    if abs(eps21) <= floor or abs(eps32) <= floor:
+        which = ("all three values agree" if abs(eps21) <= floor and abs(eps32) <= floor
+                 else "the two finest values agree" if abs(eps21) <= floor
                  else "the two coarsest values agree")
+        if abs(eps21) <= floor:
+            return estimate(nan, nan, nan, nan, False, False,
+                            f"converged to round-off ({which} to {max(noise, ROUND_OFF):.0e} "
+                            "relative): no order or GCI to read", round_off=True)
         return estimate(nan, nan, nan, nan, False, False,
                         f"{which}: apparent order undefined, no estimate")
 

@@ -1,8 +1,10 @@
-"""Files: summary.json, profile.csv, fields.vtu/.xdmf and plots, written atomically.
+"""Files: summary.json, profile.csv, wall_stress.csv, fields.vtu/.xdmf and plots.
 
-Everything goes into a fresh temporary folder beside the target, which then replaces the
-target in one rename, so an interrupted run leaves the previous results or the new ones,
-never a mix. File names are fixed here; none comes from case text.
+Writers only read a :class:`~gnflow.results.Results`; no physics here. Everything goes
+into a fresh temporary folder beside the target, which then replaces the target in one
+rename, so an interrupted run leaves the previous results or the new ones, never a mix.
+The folder and its files get the permissions the user's umask gives new ones. File names
+are fixed here; none comes from case text.
 """
 
 from __future__ import annotations
@@ -16,11 +18,9 @@ import tempfile
 from contextlib import contextmanager
 from pathlib import Path
 
-import meshio
 import numpy as np
 
-from .post import fields, wall_distributions
-from .solver import Solution
+from .results import Results, as_results, profile_columns
 
 
 def clean_for_json(value):
@@ -39,14 +39,27 @@ def clean_for_json(value):
     return value
 
 
+def _umask() -> int:
+    """The process umask (read by setting and restoring it; there is no getter)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
 @contextmanager
 def atomic_directory(target: Path):
-    """Yield a temporary folder; on success it replaces ``target`` in one rename."""
+    """Yield a temporary folder; on success it replaces ``target`` in one rename.
+
+    ``tempfile.mkdtemp`` makes the folder 0700 whatever the umask; it is opened up to
+    the mode a plain ``mkdir`` would give before the rename, so colleagues on a shared
+    machine read the results as they read any other new folder.
+    """
     target = Path(target)
     target.parent.mkdir(parents=True, exist_ok=True)
     staging = Path(tempfile.mkdtemp(prefix=f".{target.name}.partial-", dir=target.parent))
     try:
         yield staging
+        staging.chmod(0o777 & ~_umask())
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise
@@ -64,79 +77,78 @@ def write_json(path: Path, data: dict) -> None:
     path.write_text(json.dumps(clean_for_json(data), indent=2) + "\n", encoding="utf-8")
 
 
-def profile_columns(solution: Solution) -> tuple[list[str], np.ndarray]:
-    """Header and rows of a 1-D profile, sorted across the gap, units in the names."""
-    f = fields(solution)
-    x = f["x"][0]
-    order = np.argsort(x)
-    coordinate = "y [m]" if solution.domain.coordinate == "y" else "r [m]"
-    if solution.domain.kind == "axial":
-        names = [coordinate, "velocity [m/s]"]
-        columns = [x, f["velocity"]]
-    else:
-        names = [coordinate, "angular_speed [rad/s]", "velocity [m/s]"]
-        columns = [x, f["angular_speed"], f["velocity"]]
-    names += ["shear_rate [1/s]", "viscosity [Pa*s]", "shear_stress [Pa]"]
-    columns += [f["shear_rate"], f["viscosity"], f["shear_stress"]]
-    return names, np.column_stack(columns)[order]
-
-
-def write_profile_csv(path: Path, solution: Solution) -> None:
-    names, rows = profile_columns(solution)
+def write_profile_csv(path: Path, results: Results) -> None:
+    names, rows = profile_columns(results)
     with path.open("w", newline="", encoding="utf-8") as handle:
         writer = csv.writer(handle)
         writer.writerow(names)
         writer.writerows([[f"{v:.10g}" for v in row] for row in rows])
 
 
-def write_wall_csv(path: Path, solution: Solution) -> None:
-    """Wall shear stress and rate along every wall of a 2-D section."""
+def write_wall_csv(path: Path, results: Results) -> None:
+    """Wall shear stress and rate along every wall of a 2-D section.
+
+    ``shear_stress [Pa]`` is signed: the stress the fluid exerts on the wall along +z.
+    ``near_singular_corner`` is 1 within the excluded neighbourhood of a singular corner
+    (see :func:`gnflow.post.singular_exclusion_radius`), else 0.
+    """
     with path.open("w", newline="", encoding="utf-8") as handle:
         writer = csv.writer(handle)
         writer.writerow(["wall", "s [m]", "x [m]", "y [m]", "shear_stress [Pa]",
-                         "shear_rate [1/s]"])
-        for name, d in wall_distributions(solution).items():
-            for row in zip(d["s"], d["x"], d["y"], d["shear_stress"], d["shear_rate"]):
-                writer.writerow([name] + [f"{v:.10g}" for v in row])
+                         "shear_rate [1/s]", "near_singular_corner"])
+        for name, d in results.wall_distributions.items():
+            for *row, near in zip(d["s"], d["x"], d["y"], d["shear_stress"], d["shear_rate"],
+                                  d["near_singular_corner"]):
+                writer.writerow([name] + [f"{v:.10g}" for v in row] + [int(near)])
 
 
-def field_mesh(solution: Solution) -> meshio.Mesh:
-    """The solution as a meshio mesh with point data for open viewers."""
-    basis = solution.domain.basis
-    f = fields(solution)
+def field_mesh(results: Results):
+    """The solution as a meshio mesh with point data for open viewers (1-D sections lie
+    along x)."""
+    import meshio
+
+    basis = results.domain.basis
+    f = results.fields
     x = basis.doflocs
     points = np.zeros((x.shape[1], 3))
     points[:, : x.shape[0]] = x.T
     cells_by_degree = {(1, 1): "line", (1, 2): "line3", (2, 1): "triangle", (2, 2): "triangle6"}
-    cell_type = cells_by_degree[(x.shape[0], solution.domain.degree)]
+    cell_type = cells_by_degree[(x.shape[0], results.domain.degree)]
     element_dofs = basis.element_dofs.T
     data = {name: f[name] for name in ("velocity", "shear_rate", "viscosity", "shear_stress",
                                        "angular_speed", "unyielded") if name in f}
     return meshio.Mesh(points, [(cell_type, element_dofs)], point_data=data)
 
 
-def write_outputs(solution: Solution, summary: dict, out_dir: Path) -> list[str]:
-    """Write every output of a run into ``out_dir`` (replacing it); returns the names."""
+def write_outputs(solved, summary: dict, out_dir: Path) -> list[str]:
+    """Write every output of a run into ``out_dir`` (replacing it); returns the names.
+
+    ``solved`` is a :class:`~gnflow.results.Results` (a bare solution is wrapped in one);
+    ``summary`` is the dict written to ``summary.json``, normally ``results.summary()``.
+    """
+    import meshio
+
     from . import plots  # matplotlib is imported only when files are written
 
-    case = solution.case
+    results = as_results(solved)
+    case = results.case
     with atomic_directory(out_dir) as staging:
         write_json(staging / "summary.json", summary)
-        if solution.domain.dimension == 1:
-            write_profile_csv(staging / "profile.csv", solution)
+        if results.domain.dimension == 1:
+            write_profile_csv(staging / "profile.csv", results)
         else:
-            write_wall_csv(staging / "wall_stress.csv", solution)
+            write_wall_csv(staging / "wall_stress.csv", results)
         if case.output.fields:
-            mesh = field_mesh(solution)
+            mesh = field_mesh(results)
             meshio.write(staging / "fields.vtu", mesh)
             # inline XML data keeps XDMF readable without HDF5 libraries
             meshio.write(staging / "fields.xdmf", mesh, data_format="XML")
         if case.output.plots:
-            if solution.domain.dimension == 1:
-                plots.profile_plot(solution, staging / "profile.png")
+            if results.domain.dimension == 1:
+                plots.profile_plot(results, staging / "profile.png")
             else:
-                plots.section_maps(solution, staging / "fields.png")
-                plots.wall_stress_plot(solution, staging / "wall_stress.png")
-            plots.convergence_plot(solution, staging / "convergence.png")
+                plots.section_maps(results, staging / "fields.png")
+                plots.wall_stress_plot(results, staging / "wall_stress.png")
+            plots.convergence_plot(results, staging / "convergence.png")
         written = sorted(p.name for p in staging.iterdir())
     return written

@@ -1,4 +1,4 @@
-"""Fluid cards from measurements: fit flow-curve data to every viscosity model.
+"""Fluid definitions from measurements: fit flow-curve data to every viscosity model.
 
 The workflow behind ``gnflow fit DATA.csv``:
 
@@ -7,8 +7,12 @@ The workflow behind ``gnflow fit DATA.csv``:
    ``viscosity [mPa*s]``, optionally ``temperature [degC]``, into SI arrays.
 2. :func:`fit_models` fits each model of :data:`gnflow.rheology.MODELS` by
    ``scipy.optimize.least_squares`` and ranks the fits by Akaike's information criterion.
-3. :func:`write_fit_outputs` writes ``fit.json``, ``fluid.toml`` (a ``[fluid]`` card for
-   the best model) and ``fit.png``.
+3. :func:`write_fit_outputs` writes ``fit.json``, ``fluid.toml`` (a ``[fluid]`` fluid
+   definition of the best model, ready for a case file) and ``fit.png``.
+4. :func:`data_warnings` and :func:`fit_warnings` say where the data cannot be trusted to
+   determine a model: too few points for its parameters, too narrow a span of shear
+   rate, a parameter the data leave free, a column whose unit is odd for its meaning
+   (a rotational speed given as a shear rate).
 
 How the fit is posed, and why:
 
@@ -54,6 +58,7 @@ import json
 import math
 import os
 import shutil
+import sys
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -117,6 +122,7 @@ class FlowCurveData:
     stresses: np.ndarray
     temperatures: np.ndarray | None
     measured: str
+    units: dict = field(default_factory=dict)   # column name -> unit as the file gave it
 
     @property
     def points(self) -> int:
@@ -160,34 +166,36 @@ def read_flow_curve(path) -> FlowCurveData:
     """
     path = Path(path)
     source = str(path)
+    where = path.name  # messages name the file; a long folder path would crowd them out
+    shown = source if len(source) <= 50 else f".../{path.parent.name}/{path.name}"
     try:
         text = path.read_text(encoding="utf-8-sig")
     except FileNotFoundError:
-        raise CaseError("data file", source, "an existing CSV file") from None
+        raise CaseError("data file", shown, "an existing CSV file") from None
     except UnicodeDecodeError:
-        raise CaseError("data file", source, "a text file in UTF-8") from None
+        raise CaseError("data file", shown, "a text file in UTF-8") from None
     except OSError as error:
-        raise CaseError("data file", source, f"a readable file ({error.strerror})") from None
+        raise CaseError("data file", shown, f"a readable file ({error.strerror})") from None
 
     rows = [(number, cells) for number, line in enumerate(text.splitlines(), 1)
             if line.strip() and not line.lstrip().startswith("#")
             for cells in csv.reader([line])]
     if not rows:
-        raise CaseError("data file", source,
+        raise CaseError("data file", shown,
                         "a header line such as 'shear_rate [1/s],shear_stress [Pa]'")
     header_line, header = rows[0]
-    columns = _read_header(source, header_line, header)
+    columns = _read_header(where, header_line, header)
     names = [name for name, _ in columns]
 
     values = {name: [] for name in names}
     for number, cells in rows[1:]:
         if len(cells) != len(columns):
-            raise CaseError(f"{source}, line {number}", ",".join(cells),
+            raise CaseError(f"{where}, line {number}", ",".join(cells),
                             f"{len(columns)} comma-separated values ({', '.join(names)})")
         for (name, _), cell in zip(columns, cells):
-            values[name].append(_read_number(f"{source}, line {number}, column {name!r}", cell))
+            values[name].append(_read_number(f"{where}, line {number}, column {name!r}", cell))
     if not rows[1:]:
-        raise CaseError(source, "no data rows", "at least one line of values under the header")
+        raise CaseError(where, "no data rows", "at least one line of values under the header")
 
     si = {}
     for name, units in columns:
@@ -197,13 +205,14 @@ def read_flow_curve(path) -> FlowCurveData:
         for index in np.flatnonzero(~(si[name] > 0) | ~np.isfinite(si[name])):
             number, cells = rows[1 + index]
             what = "an absolute temperature > 0 K" if dimension == "temperature" else "a value > 0"
-            raise CaseError(f"{source}, line {number}, column {name!r}",
+            raise CaseError(f"{where}, line {number}, column {name!r}",
                             cells[names.index(name)].strip(), what)
 
     measured = "shear_stress" if "shear_stress" in si else "viscosity"
     rates = si["shear_rate"]
     stresses = si["shear_stress"] if measured == "shear_stress" else si["viscosity"] * rates
-    return FlowCurveData(source, rates, stresses, si.get("temperature"), measured)
+    return FlowCurveData(source, rates, stresses, si.get("temperature"), measured,
+                         {name: str(units) for name, units in columns})
 
 
 def _read_header(source: str, line: int, header: list[str]) -> list[tuple[str, object]]:
@@ -253,6 +262,76 @@ def _read_number(key: str, cell: str) -> float:
     if not math.isfinite(number):
         raise CaseError(key, cell, "a finite number")
     return number
+
+
+# --------------------------------------------------------------------------- warnings
+
+#: words in a unit name that mark a rotational speed or a frequency: the dimension of a
+#: shear rate (1/time), but not a shear rate until a viscometer's geometry converts it
+ROTATIONAL_UNIT_WORDS = ("revolution", "turn", "hertz", "radian", "cycle")
+#: a flow curve spanning less than this factor of shear rate leaves a rate-dependent
+#: model poorly determined (common practice asks for two decades or more)
+NARROW_RATE_SPAN = 10.0
+#: fits with fewer residual degrees of freedom than this are flagged as thin
+FEW_DEGREES_OF_FREEDOM = 3
+
+
+def data_warnings(data: FlowCurveData) -> list[str]:
+    """What about the data file itself limits any fit: an odd unit, a narrow rate span.
+
+    >>> d = FlowCurveData("v.csv", np.array([10.0, 20.0, 50.0]), np.array([1.0, 2.0, 4.0]),
+    ...                   None, "shear_stress", {"shear_rate": "revolutions_per_minute"})
+    >>> for text in data_warnings(d): print(text.split(":")[1].strip())
+    the shear_rate column is in revolutions_per_minute, a rotational speed
+    the shear rates span only a factor 5
+    """
+    out = []
+    unit = data.units.get("shear_rate", "")
+    if any(word in unit for word in ROTATIONAL_UNIT_WORDS):
+        out.append(f"{data.source}: the shear_rate column is in {unit}, a rotational speed: "
+                   "a viscometer's speed becomes a shear rate only through its geometry "
+                   "factor (bob and cup radii, cone angle); convert it first, or check that "
+                   "the column really holds shear rates")
+    low, high = data.rate_range
+    if high > low * (1 + 1e-9) and high / low < NARROW_RATE_SPAN:
+        out.append(f"{data.source}: the shear rates span only a factor {high / low:.3g}: a "
+                   "shear-rate-dependent model is poorly determined over so narrow a span "
+                   "(common practice: two decades or more); use it only within "
+                   f"{low:.4g} to {high:.4g} 1/s")
+    return out
+
+
+def fit_warnings(fit: "ModelFit", data: FlowCurveData) -> list[str]:
+    """Where one fit is not determined by the data: free parameters, few points."""
+    out = []
+    undetermined = [name for name, interval in fit.ci95.items() if interval is None]
+    if undetermined:
+        out.append(f"{fit.model}: the data do not determine {', '.join(undetermined)} "
+                   "(no confidence interval); do not rely on the fitted value")
+    spare = fit.points - len(fit.parameters)
+    if spare < FEW_DEGREES_OF_FREEDOM:
+        out.append(f"{fit.model}: {fit.points} points for {len(fit.parameters)} parameters "
+                   f"leave {spare} degree{'s' if spare != 1 else ''} of freedom: the fit can "
+                   "follow the noise and its intervals are unreliable; measure more points")
+    return out
+
+
+def left_out_warnings(fits: list["ModelFit"], data: FlowCurveData, asked) -> list[str]:
+    """The models the data cannot determine at all, and were therefore not fitted."""
+    if asked is not None:
+        return []
+    with_temperature = data.reference_temperature is not None
+    single_rate = data.rate_range[1] <= data.rate_range[0] * (1 + 1e-9)
+    out = []
+    for model in MODELS:
+        if model in {f.model for f in fits}:
+            continue
+        count = parameter_count(model, with_temperature)
+        reason = ("the data hold a single shear rate" if single_rate and count < data.points
+                  else f"{data.points} points cannot determine its {count} parameters "
+                  f"(it needs at least {count + 1})")
+        out.append(f"{model} not fitted: {reason}")
+    return out
 
 
 # --------------------------------------------------------------------------- fitting
@@ -344,7 +423,7 @@ def fit_models(data: FlowCurveData, models=None) -> list[ModelFit]:
             if parameter_count(name, with_temperature) >= data.points:
                 _too_few_points(data, name, with_temperature)
             if single_rate and name != "newtonian":
-                raise CaseError(str(data.source), name, (
+                raise CaseError(Path(data.source).name, name, (
                     "newtonian: the data hold a single shear rate "
                     f"({low:.4g} 1/s), so no shear-rate dependence can be fitted"))
     fits = [_fit_model(data, name) for name in names]
@@ -354,7 +433,7 @@ def fit_models(data: FlowCurveData, models=None) -> list[ModelFit]:
 def _too_few_points(data: FlowCurveData, model: str, with_temperature: bool):
     p = parameter_count(model, with_temperature)
     shift = " with the Arrhenius shift" if with_temperature else ""
-    raise CaseError(data.source, f"{data.points} data point" + ("s" if data.points != 1 else ""),
+    raise CaseError(Path(data.source).name, f"{data.points} data point" + ("s" if data.points != 1 else ""),
                     f"at least {p + 1} points to fit {model} "
                     f"({p} parameter{'s' if p != 1 else ''}{shift}, and one more for the error)")
 
@@ -640,7 +719,7 @@ def parameter_unit(name: str, parameters: dict) -> str:
 
 
 def _number(value: float) -> str:
-    """Four significant digits: what the data support, and what the card carries."""
+    """Four significant digits: what the data support, and what the definition carries."""
     return f"{value:.4g}"
 
 
@@ -648,8 +727,10 @@ def _celsius(kelvin: float) -> str:
     return f"{round(kelvin - 273.15, 2):g} degC"
 
 
-def fit_report(fits: list[ModelFit], data: FlowCurveData) -> dict:
-    """The content of fit.json: the data's ranges and every fit, best first, in SI."""
+def fit_report(fits: list[ModelFit], data: FlowCurveData, warnings=(),
+               caution: str = "") -> dict:
+    """The content of fit.json: the data's ranges and every fit, best first, in SI, with
+    the warnings printed and the caution line."""
     def finite(value):
         return value if value is None or math.isfinite(value) else None
 
@@ -678,10 +759,12 @@ def fit_report(fits: list[ModelFit], data: FlowCurveData) -> dict:
             "aic": f.aic,
             "at_bound": list(f.at_bound),
         } for f in fits],
+        "warnings": list(warnings),
+        "caution": caution,
     }
 
 
-def fluid_card(fit: ModelFit, data: FlowCurveData, ranked: int = 1) -> str:
+def fluid_definition(fit: ModelFit, data: FlowCurveData, ranked: int = 1) -> str:
     """The ``[fluid]`` block for ``fit``, ready to paste into a case file.
 
     >>> import numpy as np
@@ -689,7 +772,7 @@ def fluid_card(fit: ModelFit, data: FlowCurveData, ranked: int = 1) -> str:
     ...                      None, "shear_stress")
     >>> fit = ModelFit("herschel-bulkley", {"yield_stress": 8.123, "consistency": 2.5061,
     ...                "flow_index": 0.45}, {}, 0.99, 0.01, -50.0, 2)
-    >>> print(fluid_card(fit, data))  # doctest: +ELLIPSIS
+    >>> print(fluid_definition(fit, data))  # doctest: +ELLIPSIS
     # fitted by gnflow fit to paste.csv: ...
     [fluid]
     model = "herschel-bulkley"
@@ -733,7 +816,8 @@ def fluid_card(fit: ModelFit, data: FlowCurveData, ranked: int = 1) -> str:
     return "\n".join(lines) + "\n"
 
 
-def write_fit_outputs(fits: list[ModelFit], data: FlowCurveData, out_dir) -> Path:
+def write_fit_outputs(fits: list[ModelFit], data: FlowCurveData, out_dir, warnings=(),
+                      caution: str = "") -> Path:
     """Write fit.json, fluid.toml and fit.png into ``out_dir``, each file atomically.
 
     The files are written into a temporary directory beside ``out_dir`` and then moved
@@ -749,8 +833,9 @@ def write_fit_outputs(fits: list[ModelFit], data: FlowCurveData, out_dir) -> Pat
                         f"a directory that can be written ({error.strerror})") from None
     try:
         (staging / "fit.json").write_text(
-            json.dumps(fit_report(fits, data), indent=2, allow_nan=False) + "\n")
-        (staging / "fluid.toml").write_text(fluid_card(fits[0], data))
+            json.dumps(fit_report(fits, data, warnings, caution), indent=2,
+                       allow_nan=False) + "\n")
+        (staging / "fluid.toml").write_text(fluid_definition(fits[0], data))
         _plot(fits, data, staging / "fit.png")
         for name in ("fit.json", "fluid.toml", "fit.png"):
             os.replace(staging / name, out / name)
@@ -849,29 +934,35 @@ def format_table(fits: list[ModelFit], data: FlowCurveData) -> str:
     return "\n".join(lines)
 
 
-def run_fit_command(data_path: str, models: list[str] | None, out_dir: str | None) -> int:
+def run_fit_command(data_path: str, models: list[str] | None, out_dir: str | None,
+                    quiet: bool = False) -> int:
     """``gnflow fit DATA.csv [--models ...] [--out DIR]``: fit, print the table, write files.
 
     ``models`` may hold names or comma-separated lists of names; None fits every model
     the data can support. ``out_dir`` defaults to ``results/<data file stem>-fit/``.
-    Bad input raises :class:`CaseError` (exit code 2 in the command line).
+    Warnings (:func:`data_warnings`, :func:`fit_warnings`, the models left out) are
+    printed and kept in fit.json; ``quiet`` prints only them. Bad input raises
+    :class:`CaseError` (exit code 2 in the command line).
     """
+    from .post import CAUTION  # the one place the caution text lives
+
     data = read_flow_curve(data_path)
     names = None
     if models:
         names = [name.strip() for entry in models for name in entry.split(",") if name.strip()]
     fits = fit_models(data, names)
+    warnings = (data_warnings(data) + [w for f in fits for w in fit_warnings(f, data)]
+                + left_out_warnings(fits, data, names))
     out = Path(out_dir) if out_dir else Path("results") / f"{Path(data_path).stem}-fit"
-    write_fit_outputs(fits, data, out)
+    write_fit_outputs(fits, data, out, warnings, CAUTION)
+    if quiet:
+        for warning in warnings:
+            print(f"WARNING: {warning}", file=sys.stderr)
+        return 0
     print(format_table(fits, data))
-    with_temperature = data.reference_temperature is not None
-    left_out = [m for m in MODELS if names is None and m not in {f.model for f in fits}]
-    single_rate = data.rate_range[1] <= data.rate_range[0] * (1 + 1e-9)
-    for model in left_out:
-        count = parameter_count(model, with_temperature)
-        reason = ("the data hold a single shear rate" if single_rate and count < data.points
-                  else f"{count} parameters need at least {count + 1} points")
-        print(f"  left out {model}: {reason}")
-    print(f"\nwrote {out / 'fit.json'}, {out / 'fluid.toml'} ({fits[0].model}) "
-          f"and {out / 'fit.png'}")
+    for warning in warnings:
+        print(f"  WARNING: {warning}")
+    print(f"\nwrote {out / 'fit.json'}, {out / 'fluid.toml'} (fluid definition: "
+          f"{fits[0].model}) and {out / 'fit.png'}")
+    print(f"  caution: {CAUTION}")
     return 0

@@ -5,12 +5,15 @@ in a straight passage, for the Reynolds number definition that criterion was bui
 
 * Newtonian and other fluids: 2100, common practice for pipes (the transition begins
   between about 2000 and 2300).
-* Power-law fluids: Ryan & Johnson (1959), on the Metzner-Reed Reynolds number.
-* Bingham plastics: Hanks (1963), on the plastic Reynolds number ``rho V D / mu_p``,
-  as a function of the Hedstrom number.
+* Power-law fluids: Ryan & Johnson (1959), AIChE J. 5, 433, on the Metzner-Reed
+  Reynolds number (Metzner & Reed 1955, AIChE J. 1, 434).
+* Bingham plastics: Hanks (1963), AIChE J. 9, 306, on the plastic Reynolds number
+  ``rho V D / mu_p``, as a function of the Hedstrom number (Hedstrom 1952, Ind. Eng.
+  Chem. 44, 651; journal recalled from memory).
 
 For passages other than round pipes the criteria are applied with the hydraulic
-diameter, which is common practice and no more than a guide.
+diameter, which is common practice and no more than a guide; results say so with
+:data:`APPROXIMATE_OFF_PIPE`.
 
 >>> round(ryan_johnson_critical_reynolds(1.0))
 2099
@@ -28,6 +31,9 @@ from scipy.optimize import brentq
 #: (common practice)
 COMMON_PRACTICE_REYNOLDS = 2100.0
 COMMON_PRACTICE = "2100, common practice for pipes"
+
+#: the label of a pipe criterion applied to another shape
+APPROXIMATE_OFF_PIPE = "approximate (pipe criterion applied through the hydraulic diameter)"
 
 #: the constant 16800 of Hanks' plug-ratio equation (Hanks 1963)
 _HANKS_CONSTANT = 16800.0
@@ -190,6 +196,6 @@ the flow is likely transitional or turbulent, and these laminar results do not h
             "results do not hold there")
 
 
-__all__ = ["COMMON_PRACTICE_REYNOLDS", "bingham_plastic_reynolds", "hanks_critical_plug_ratio",
+__all__ = ["APPROXIMATE_OFF_PIPE", "COMMON_PRACTICE_REYNOLDS", "bingham_plastic_reynolds", "hanks_critical_plug_ratio",
            "hanks_critical_reynolds", "hedstrom_number", "laminar_limit", "laminar_warning",
            "ryan_johnson_critical_reynolds"]

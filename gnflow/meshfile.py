@@ -1,9 +1,14 @@
 """Reading a 2-D cross-section from a mesh file (any format meshio reads).
 
 Triangles (3-node, or 6-node for curved, isoparametric sections) make the section; line
-elements in named physical groups (gmsh ``.msh``) name the walls. Every boundary edge
-that no group names belongs to the wall ``"wall"``. Coordinates are multiplied by the
-case's ``geometry.length_unit``.
+elements in named boundary groups (the named line groups of a gmsh ``.msh`` file) name
+the walls. Every boundary edge that no group names belongs to the wall ``"wall"``.
+Coordinates are multiplied by the case's ``geometry.length_unit``.
+
+Every problem with the file (missing, unreadable, too large, empty, 3-D, degenerate or
+malformed) is a :class:`CaseError` naming ``geometry.file``; ``gnflow check`` and
+``gnflow run`` read the file through :func:`read_case_section` and so refuse it with the
+same message. numpy, scikit-fem and meshio are imported only when a file is read.
 """
 
 from __future__ import annotations
@@ -13,20 +18,59 @@ import io
 from pathlib import Path
 
 import numpy as np
-from skfem import MeshTri, MeshTri2
 
-from .errors import CaseError
+from .errors import CaseError, one_line, shorten, shown_key
 
 DEFAULT_WALL = "wall"
+#: larger files are refused before meshio reads them (a cross-section is rarely > 10 MB)
+MAX_MESH_BYTES = 200_000_000
 
 
 def _fail(path: Path, what: str) -> CaseError:
-    return CaseError("geometry.file", message=f"geometry.file = {str(path)!r}: {what}")
+    return CaseError("geometry.file", message=f"geometry.file = {shorten(str(path), 80)}: {what}")
+
+
+def read_case_section(geometry, wall_speed: dict):
+    """Read the mesh file of a ``shape = "mesh"`` case and check that every wall named in
+    ``[drive] wall_speed`` is one of its walls; return ``(mesh, walls)`` as
+    :func:`read_section` does."""
+    mesh, walls = read_section(geometry.file, geometry.length_unit)
+    check_wall_names(walls, wall_speed, geometry.file)
+    return mesh, walls
+
+
+def check_wall_names(walls: dict, wall_speed: dict, path: Path) -> None:
+    """Raise a :class:`CaseError` for a wall speed given to a wall the mesh does not have."""
+    for name in wall_speed:
+        if name not in walls:
+            raise CaseError(f"drive.wall_speed.{name}", message=(
+                f"drive.wall_speed.{shown_key(name)}: the mesh {shown_key(Path(path).name, 40)} "
+                f"has no boundary group named {shorten(name)}; its walls are: "
+                f"{', '.join(sorted(walls))}"))
 
 
 def read_section(path: Path, length_unit: float = 1.0):
     """Return ``(mesh, {wall name: boundary facet indices})`` for a mesh file."""
+    try:
+        size = Path(path).stat().st_size
+    except OSError as err:
+        raise _fail(path, f"cannot read the file ({err.strerror})") from None
+    if size > MAX_MESH_BYTES:
+        raise _fail(path, f"larger than {MAX_MESH_BYTES} bytes; expected a 2-D cross-section")
+    try:
+        return _read_section(path, length_unit)
+    except CaseError:
+        raise
+    except (ValueError, IndexError, KeyError, TypeError) as err:
+        # a file meshio reads but whose cells do not form a mesh (indices out of range,
+        # edges shared by more than two triangles, ...) fails inside numpy or scikit-fem
+        raise _fail(path, f"malformed mesh ({type(err).__name__}: "
+                    f"{shorten(str(err), 50)})") from None
+
+
+def _read_section(path: Path, length_unit: float):
     import meshio
+    from skfem import MeshTri
 
     noise = io.StringIO()
     try:
@@ -35,10 +79,13 @@ def read_section(path: Path, length_unit: float = 1.0):
             data = meshio.read(path)
     except (Exception, SystemExit) as err:  # meshio raises many types for unreadable files
         text = str(err) if str(err) and not isinstance(err, SystemExit) else noise.getvalue()
-        reason = text.strip().splitlines()[0][:120] if text.strip() else type(err).__name__
-        raise _fail(path, f"cannot read the mesh ({reason}); expected a 2-D triangle mesh "
-                    "in a format meshio reads (.msh, .vtu, .xdmf, ...)") from None
+        reason = one_line(text.strip().splitlines()[0], 60) if text.strip() \
+            else type(err).__name__
+        raise _fail(path, "cannot read the mesh, expected a 2-D triangle mesh that meshio "
+                    f"reads (.msh, .vtu, .xdmf): {reason}") from None
     points = np.asarray(data.points, dtype=float)
+    if points.ndim != 2 or points.shape[1] not in (2, 3):
+        raise _fail(path, "the points are not 2-D or 3-D coordinates")
     if points.size == 0:
         raise _fail(path, "the mesh is empty (no points)")
     if not np.all(np.isfinite(points)):
@@ -60,6 +107,8 @@ def read_section(path: Path, length_unit: float = 1.0):
         raise _fail(path, "mixes 3-node and 6-node triangles; expected one kind")
     xy = points[:, :2] * length_unit
     connectivity = np.vstack(curved or triangles)
+    if connectivity.min() < 0 or connectivity.max() >= len(points):
+        raise _fail(path, "triangles refer to points the file does not have")
     corners = np.unique(connectivity[:, :3])
     renumber = -np.ones(len(points), dtype=np.int64)
     renumber[corners] = np.arange(len(corners))
@@ -79,7 +128,7 @@ def read_section(path: Path, length_unit: float = 1.0):
     return mesh, _named_walls(linear, boundary, data, renumber, path)
 
 
-def _signed_areas(mesh: MeshTri) -> np.ndarray:
+def _signed_areas(mesh) -> np.ndarray:
     p = mesh.p[:, mesh.t]
     return 0.5 * ((p[0, 1] - p[0, 0]) * (p[1, 2] - p[1, 0]) - (p[0, 2] - p[0, 0]) * (p[1, 1] - p[1, 0]))
 
@@ -88,7 +137,9 @@ def _edge_key(a, b):
     return (min(a, b), max(a, b))
 
 
-def _quadratic(linear: MeshTri, xy, connectivity, renumber) -> MeshTri2:
+def _quadratic(linear, xy, connectivity, renumber):
+    from skfem import MeshTri2
+
     midpoint_of = {}
     for local_a, local_b, local_m in ((0, 1, 3), (1, 2, 4), (2, 0, 5)):
         for row in connectivity:
@@ -100,7 +151,7 @@ def _quadratic(linear: MeshTri, xy, connectivity, renumber) -> MeshTri2:
     return MeshTri2(doflocs, quadratic.t)
 
 
-def _named_walls(linear: MeshTri, boundary, data, renumber, path) -> dict[str, np.ndarray]:
+def _named_walls(linear, boundary, data, renumber, path) -> dict[str, np.ndarray]:
     facet_of = {_edge_key(a, b): k for k, (a, b) in enumerate(linear.facets.T)}
     boundary_set = set(boundary.tolist())
     names = {int(tag): name for name, (tag, dim) in

@@ -1,29 +1,83 @@
 """Derived quantities of a solved flow: flow rate, wall stresses, torque, plugs, Re.
 
+Pure functions of a :class:`~gnflow.solver.Solution`; :mod:`gnflow.results` calls each
+once and keeps the answers in one result object that the writers and plots read.
+
 Wall shear stresses and the torque come from the discrete reaction at the wall dofs (the
 residual of the momentum balance with the walls left free), which is the consistent,
 superconvergent flux of the finite element solution, and not from a differentiated field.
+
+Conventions of the summary (stated once here, printed with every summary):
+
+* **Direction.** Axial flows run along ``z``; ``flow_rate`` is signed (positive toward
+  +z) and ``flow_direction`` names the way the net flow goes. Speeds (``mean_velocity``,
+  ``max_velocity``) are magnitudes; ``max_velocity_signed`` and ``min_velocity`` give the
+  signed range of the axial velocity, positive toward +z.
+* **Wall shear stress.** Magnitudes everywhere. Per wall: the magnitude of the wall's
+  mean shear stress, |axial force on the wall| / its wetted perimeter. Mean: the
+  perimeter-weighted mean of the per-wall values. Max: the largest local magnitude along
+  the walls (2-D: outside the neighbourhoods of singular corners). The direction of the
+  force on each wall is given separately (``force_direction``); a wall that drives the
+  flow is dragged back by the fluid, against the flow.
 """
 
 from __future__ import annotations
+
+import math
 
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from skfem import BilinearForm, FacetBasis, LinearForm, asm
 
-from .laminar import bingham_plastic_reynolds, laminar_limit, laminar_warning
+from .laminar import (APPROXIMATE_OFF_PIPE, bingham_plastic_reynolds, hedstrom_number,
+                      laminar_limit, laminar_warning)
 from .solver import Solution, invert_flow_curve
 
 #: Critical Taylor number of the narrow-gap Taylor-Couette flow with the inner cylinder
-#: turning (Taylor 1923; 1708 is the classical narrow-gap value, common practice as a limit)
+#: turning (Taylor 1923, Phil. Trans. R. Soc. A 223; 1708 is the classical narrow-gap
+#: value, common practice as a limit)
 CRITICAL_TAYLOR = 1708.0
+
+#: A converged summary's force balance (axial) or torque balance (rotational) must hold to
+#: this relative error, or to 100 times the solver tolerance if that is looser: the
+#: balance error of the discrete flux is of the order of the nonlinear residual
+BALANCE_TOLERANCE = 1e-8
+
+#: Radius of the neighbourhood of a singular corner left out of the summary's wall maxima,
+#: as a fraction of the section's length scale; at least two wall cells
+SINGULAR_NEIGHBOURHOOD = 0.02
 
 ASSUMPTIONS = ("laminar, isothermal, steady, fully developed flow of an incompressible "
                "generalized Newtonian fluid; no slip at the walls unless a wall speed is given; "
                "the viscosity model is only as good as its fit to the user's measurements")
-CAUTION = ("gnflow results support, and do not replace, engineering judgement: check every "
-           "design against the applicable codes and have it reviewed by a qualified engineer")
+
+#: the closing line of every command that prints design numbers
+CAUTION = ("results must be checked against the applicable local codes and standards and "
+           "by a licensed or registered engineer before they are used in a design")
+CAUTION_PRESSURE_PER_LENGTH = (
+    "the pressure per length is the friction of fully developed laminar flow only: entrance "
+    "lengths, fittings, static head and surge are excluded; check pipe and fitting pressure "
+    "ratings separately")
+CAUTION_YIELD_RESTART = (
+    "yield-stress pipelines: restarting a gelled line may need far more than the steady "
+    "gradient computed here (thixotropy, gel strength)")
+CAUTION_DRILLING_ANNULUS = (
+    "drilling annuli: surge/swab and well-control decisions follow the operator's "
+    "procedures and industry recommended practice, not this calculation alone")
+
+
+def cautions_for(case) -> list[str]:
+    """The cautions that apply to a case, the general one last."""
+    shape = case.geometry.shape
+    out = []
+    if shape != "coaxial-cylinders":
+        out.append(CAUTION_PRESSURE_PER_LENGTH)
+        if case.fluid.model.is_yield_stress:
+            out.append(CAUTION_YIELD_RESTART)
+    if shape == "annulus":
+        out.append(CAUTION_DRILLING_ANNULUS)
+    return out + [CAUTION]
 
 
 @LinearForm
@@ -52,18 +106,6 @@ def project(basis, values_at_points) -> np.ndarray:
     return result
 
 
-def _once(function):
-    """Compute a derived quantity of a solution once; the summary and every output file
-    then share it (the projections behind ``fields`` are the dearest part of a run)."""
-    def cached(solution: Solution):
-        if function.__name__ not in solution.derived:
-            solution.derived[function.__name__] = function(solution)
-        return solution.derived[function.__name__]
-    cached.__name__, cached.__doc__ = function.__name__, function.__doc__
-    return cached
-
-
-@_once
 def fields(solution: Solution) -> dict[str, np.ndarray]:
     """Point fields at the dofs: velocity (axial) or angular speed, shear rate,
     apparent viscosity, shear stress magnitude; plus the coordinate ``x``."""
@@ -86,8 +128,14 @@ def fields(solution: Solution) -> dict[str, np.ndarray]:
 
 
 def wall_stresses(solution: Solution) -> dict[str, float]:
-    """Shear stress the fluid exerts on each wall (Pa), in +z for axial flows, and the
-    wall-tangential stress magnitude for rotational flow."""
+    """Signed mean shear stress on each wall (Pa): the axial force the fluid exerts on the
+    wall per unit length, along +z, divided by the wall's wetted perimeter; for rotational
+    flow the magnitude of the wall-tangential stress. A solution that carries its own
+    ``axial_wall_shear_stress`` (helical flow, whose axial flux depends on the rotation
+    too) is taken at its word."""
+    own = getattr(solution, "axial_wall_shear_stress", None)
+    if own:
+        return {name: float(own[name]) for name in solution.domain.walls}
     problem = solution.problem()
     reaction = problem.residual(solution.u, solution.pressure_gradient)
     out = {}
@@ -100,16 +148,37 @@ def wall_stresses(solution: Solution) -> dict[str, float]:
     return out
 
 
-@_once
+def singular_exclusion_radius(solution: Solution) -> float:
+    """Radius (m) of the neighbourhood of each singular corner that the wall maxima leave
+    out: ``SINGULAR_NEIGHBOURHOOD`` times the section's length scale, and at least two of
+    the longest wall cells, so that the corner's own cells are always excluded."""
+    mesh = solution.domain.basis.mesh
+    longest = 0.0
+    for facets in solution.domain.extra.get("wall_facets", {}).values():
+        ends = mesh.p[:, mesh.facets[:, facets]]
+        longest = max(longest, float(np.max(np.linalg.norm(ends[:, 0] - ends[:, 1], axis=0))))
+    return max(SINGULAR_NEIGHBOURHOOD * solution.domain.length_scale, 2.0 * longest)
+
+
+def singular_points(solution: Solution) -> list[dict]:
+    """The section's singular corners (a wall-speed jump, a re-entrant corner), as
+    recorded by :mod:`gnflow.geometry` in ``domain.extra["singular_points"]``."""
+    return list(solution.domain.extra.get("singular_points", ()))
+
+
 def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
     """Along each wall of a 2-D section: arc length ``s`` (m, along the chained wall
-    facets), points ``x``, ``y``, and the wall shear stress (Pa, on the wall in +z) and
-    shear rate (1/s) at the facet quadrature points."""
+    facets), points ``x``, ``y``, the signed wall shear stress (Pa, on the wall along +z),
+    the shear rate (1/s) at the facet quadrature points, their weights, and
+    ``near_singular_corner`` (True within :func:`singular_exclusion_radius` of a
+    singular corner)."""
     domain = solution.domain
     mesh = domain.basis.mesh
+    corners = singular_points(solution)
+    radius = singular_exclusion_radius(solution) if corners else 0.0
     out = {}
-    for name, wall in domain.walls.items():
-        facets = _chained(mesh, wall_facets_of(solution, name))
+    for name in domain.walls:
+        facets = _chained(mesh, domain.extra["wall_facets"][name])
         facet_basis = FacetBasis(mesh, domain.basis.elem, facets=facets)
         gradient = facet_basis.interpolate(solution.u).grad
         normal_derivative = np.sum(gradient * facet_basis.normals, axis=0)
@@ -124,14 +193,15 @@ def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
         fraction = np.cumsum(facet_basis.dx, axis=1) - 0.5 * facet_basis.dx
         s = start[:, None] + fraction
         order = np.argsort(s.ravel(), kind="stable")
-        out[name] = {"s": s.ravel()[order], "x": points[0].ravel()[order],
-                     "y": points[1].ravel()[order], "shear_stress": stress.ravel()[order],
-                     "shear_rate": rate.ravel()[order], "weight": facet_basis.dx.ravel()[order]}
+        x, y = points[0].ravel()[order], points[1].ravel()[order]
+        near = np.zeros(x.shape, dtype=bool)
+        for corner in corners:
+            near |= np.hypot(x - corner["x"], y - corner["y"]) <= radius
+        out[name] = {"s": s.ravel()[order], "x": x, "y": y,
+                     "shear_stress": stress.ravel()[order],
+                     "shear_rate": rate.ravel()[order], "weight": facet_basis.dx.ravel()[order],
+                     "near_singular_corner": near}
     return out
-
-
-def wall_facets_of(solution: Solution, name: str) -> np.ndarray:
-    return solution.domain.extra["wall_facets"][name]
 
 
 def _chained(mesh, facets: np.ndarray) -> np.ndarray:
@@ -220,13 +290,59 @@ def reynolds_number(solution: Solution, mean_velocity: float, wall_rate: float,
     return rho * V * D / eta, "rho V D_h / eta(mean wall shear rate)"
 
 
-def summarise(solution: Solution) -> dict:
-    """The summary dict (SI units) written to ``summary.json``."""
+def flow_start_pressure_gradient(solution: Solution) -> dict | None:
+    """The magnitude of the pressure gradient (Pa/m) a yield-stress fluid at rest in the
+    section needs to start flowing, with fixed walls; None if walls move or the fluid has
+    no yield stress.
+
+    * pipe of radius R: ``2 tau_y / R``; slit of gap h: ``tau_y / (h/2)``; concentric
+      annulus: ``2 tau_y / (R_o - R_i)``, exact: the stress ``tau(r) = G r / 2 - C / r``
+      with ``tau(R_i) = -tau_y`` and ``tau(R_o) = tau_y`` gives
+      ``G (R_o^2 - R_i^2) / 2 = tau_y (R_o + R_i)`` and stays within the yield stress
+      between (global force balance of the rigid plug at the limit load);
+    * 2-D sections: the section's own limit load from
+      :func:`gnflow.solver.scales.stopping_gradient` (exact method or closed form), else the
+      upper bound ``tau_y P / A`` (the whole section as a candidate plug; the true value,
+      ``tau_y`` times the section's Cheeger constant, is at most this).
+    """
+    domain, model = solution.domain, solution.model
+    if (not model.is_yield_stress or domain.kind != "axial"
+            or any(w.value != 0 for w in domain.walls.values())):
+        return None
+    tau_y = model.yield_stress
+    g = solution.case.geometry
+    if domain.shape == "pipe":
+        return {"value": 2 * tau_y / g.radius, "source": "2 tau_y / R (exact, pipe)"}
+    if domain.shape == "slit":
+        return {"value": tau_y / (g.gap / 2), "source": "tau_y / (h/2) (exact, slit)"}
+    if domain.dimension == 1 and domain.shape == "annulus":
+        return {"value": 2 * tau_y / (g.outer_radius - g.inner_radius),
+                "source": "2 tau_y / (R_o - R_i) (exact, concentric annulus)"}
+    from .solver.scales import stopping_gradient
+    value = stopping_gradient(domain, tau_y)
+    if value:
+        return {"value": value, "source": "limit load of the section"}
+    perimeter = sum(w.perimeter for w in domain.walls.values())
+    return {"value": tau_y * perimeter / domain.area,
+            "source": "upper bound tau_y P / A (the true start gradient may be lower)"}
+
+
+def summarise(solution: Solution, point_fields: dict | None,
+              distributions: dict | None) -> dict:
+    """The summary dict (SI units) written to ``summary.json``.
+
+    ``point_fields`` (1-D yield-stress flows: plug intervals) and ``distributions`` (2-D:
+    wall maxima and means) are those of :func:`fields` and :func:`wall_distributions`,
+    computed once by the caller. A converged solve whose numbers are not all finite, or
+    whose force or torque balance fails, is reported ``converged: false`` with the reason.
+    """
     case, domain = solution.case, solution.domain
-    warnings = list(solution.warnings)
+    warnings = list(getattr(case, "notices", ())) + list(solution.warnings)
+    notes: list[str] = []
     out = {
         "title": case.title,
         "shape": domain.shape,
+        "section_dimension": domain.dimension,   # 1: across a gap, 2: a cross-section
         "model": solution.model.name,
         "converged": solution.converged,
         "iterations": solution.iterations,
@@ -237,127 +353,280 @@ def summarise(solution: Solution) -> dict:
         "degree": domain.degree,
         "solve_seconds": solution.seconds,
     }
-    stresses = wall_stresses(solution)
-    perimeters = {n: w.perimeter for n, w in domain.walls.items()}
-    total_perimeter = sum(perimeters.values())
-    mean_stress = sum(abs(stresses[n]) * perimeters[n] for n in stresses) / total_perimeter
-    if domain.dimension == 1:
-        rates = {n: invert_flow_curve(solution.model, abs(t)) if t else 0.0
-                 for n, t in stresses.items()}
-        largest_stress, largest_rate = max(abs(t) for t in stresses.values()), max(rates.values())
-    else:
-        # along the walls of a section: the mean per wall is the perimeter-weighted mean
-        # of the local rate; maxima come from the distribution
-        distributions = wall_distributions(solution)
-        rates = {n: float(np.sum(d["shear_rate"] * d["weight"]) / np.sum(d["weight"]))
-                 for n, d in distributions.items()}
-        largest_stress = max(float(np.max(np.abs(d["shear_stress"])))
-                             for d in distributions.values())
-        largest_rate = max(float(np.max(d["shear_rate"])) for d in distributions.values())
-    mean_rate = sum(rates[n] * perimeters[n] for n in rates) / total_perimeter
-    out["wall_shear_stress"] = {"mean": mean_stress, "max": largest_stress,
-                                "per_wall": stresses}
-    out["wall_shear_rate"] = {"mean": mean_rate, "max": largest_rate, "per_wall": rates}
-    problem = solution.problem()
+    signed = wall_stresses(solution)
+    out.update(_wall_summary(solution, signed, distributions, notes))
     if domain.kind == "axial":
-        flow_rate = problem.flow_rate(solution.u)
-        mean_velocity = flow_rate / domain.area
-        out.update({
-            "pressure_gradient": solution.pressure_gradient,
-            "pressure_drop_per_length": -solution.pressure_gradient,
-            "flow_rate": flow_rate,
-            "mean_velocity": mean_velocity,
-            "max_velocity": float(np.max(solution.u)),
-            "min_velocity": float(np.min(solution.u)),
-            "hydraulic_diameter": domain.hydraulic_diameter,
-            "cross_section_area": domain.area,
-            # pressure work per unit length; walls moving against the flow add their own
-            "pumping_power_per_length": -solution.pressure_gradient * flow_rate,
-        })
-        # steady axial momentum: the pressure force on the section balances the wall drag
-        drag = sum(stresses[n] * perimeters[n] for n in stresses)
-        discrete_area = float(problem.load.sum())
-        out["force_balance_error"] = abs(drag + solution.pressure_gradient * discrete_area) / max(
-            abs(drag), abs(solution.pressure_gradient * discrete_area), 1e-300)
-        if case.fluid.density is not None and mean_velocity != 0:
-            re, definition = reynolds_number(solution, mean_velocity, mean_rate,
-                                             domain.hydraulic_diameter)
-            out["reynolds_number"] = re
-            out["reynolds_definition"] = definition
-            out["fanning_friction_factor"] = mean_stress / (
-                0.5 * case.fluid.density * mean_velocity ** 2)
-            critical, criterion = laminar_limit(solution.model, case.fluid.density,
-                                                domain.hydraulic_diameter)
-            compared = re
-            if solution.model.name == "bingham":
-                # Hanks' criterion is stated on the plastic Reynolds number rho V D / mu_p
-                compared = bingham_plastic_reynolds(case.fluid.density, mean_velocity,
-                                                    domain.hydraulic_diameter,
-                                                    solution.model.plastic_viscosity)
-                out["plastic_reynolds_number"] = compared
-            out["laminar_limit"] = {"reynolds_number": critical, "criterion": criterion}
-            warning = laminar_warning(compared, critical, criterion)
-            if warning:
-                warnings.append(warning)
+        _axial_summary(solution, signed, out, warnings, notes)
     else:
-        torque, imbalance = torque_per_length(solution)
-        out["torque_per_length"] = torque
-        out["torque_imbalance"] = imbalance
-        out["inner_angular_speed"] = case.drive.inner_angular_speed
-        out["outer_angular_speed"] = case.drive.outer_angular_speed
-        out["power_per_length"] = torque * (case.drive.inner_angular_speed
-                                            - case.drive.outer_angular_speed)
-        g = case.geometry
-        if case.fluid.density is not None and case.drive.inner_angular_speed != 0:
-            gap = g.outer_radius - g.inner_radius
-            eta = float(solution.model.viscosity(np.array([max(rates["inner"], 1e-300)]))[0])
-            nu = eta / case.fluid.density
-            taylor = (case.drive.inner_angular_speed * g.inner_radius * gap / nu) ** 2 * (
-                gap / g.inner_radius)
-            out["taylor_number"] = taylor
-            if taylor > CRITICAL_TAYLOR:
-                warnings.append(
-                    f"Taylor number {taylor:.4g} exceeds {CRITICAL_TAYLOR:.0f} (narrow-gap "
-                    "critical value, common practice): Taylor vortices are likely and the "
-                    "purely azimuthal flow computed here does not hold")
+        _rotational_summary(solution, out, warnings)
     if solution.model.is_yield_stress:
-        out["unyielded_fraction"] = unyielded_fraction(solution)
-        out["yield_stress"] = solution.model.yield_stress
-        if out["wall_shear_stress"]["max"] <= solution.model.yield_stress:
-            warnings.append("the wall shear stress does not exceed the yield stress: the "
-                            "material does not flow; the small flow computed is creep of the "
-                            "regularised model, not a real flow")
-        if domain.dimension == 1:
-            f = fields(solution)
-            out["plugs"] = plug_intervals(f["x"][0], f["shear_stress"],
-                                          solution.model.yield_stress)
+        _yield_summary(solution, point_fields, out, warnings)
     if solution.regularisation:
         out["regularisation"] = solution.regularisation
+    warnings += _extrapolation_warnings(case, out)
+    if case.fluid.temperature_law:
+        out["temperature"] = case.fluid.temperature
+        out["temperature_law"] = case.fluid.temperature_law
+    _check_converged(solution, out)
+    if not out["converged"]:
+        warnings.append(out["message"])
+    out["warnings"] = warnings
+    out["notes"] = notes
+    out["assumptions"] = ASSUMPTIONS
+    out["cautions"] = cautions_for(case)
+    out["caution"] = CAUTION
+    return out
+
+
+def _wall_summary(solution: Solution, signed: dict, distributions: dict | None,
+                  notes: list[str]) -> dict:
+    """Wall shear stress and rate, magnitudes, per wall, mean and max (see the module
+    docstring for the convention)."""
+    domain = solution.domain
+    perimeters = {n: w.perimeter for n, w in domain.walls.items()}
+    total = sum(perimeters.values())
+    stresses = {n: abs(t) for n, t in signed.items()}
+    stress = {"convention": (
+        "magnitudes; per wall |axial force on the wall| / perimeter; mean perimeter-weighted; "
+        "max the largest local value" if domain.kind == "axial" else
+        "magnitudes of the azimuthal shear stress on each cylinder; mean perimeter-weighted")}
+    if domain.dimension == 1:
+        rates = {n: invert_flow_curve(solution.model, t) if t else 0.0
+                 for n, t in stresses.items()}
+        largest_stress, largest_rate = max(stresses.values()), max(rates.values())
+    else:
+        # the mean per wall is the perimeter-weighted mean of the local rate; maxima come
+        # from the distribution, away from singular corners, where the local stress of
+        # the exact solution is unbounded and the computed one grows with refinement
+        rates = {n: float(np.sum(d["shear_rate"] * d["weight"]) / np.sum(d["weight"]))
+                 for n, d in distributions.items()}
+        kept = [(np.abs(d["shear_stress"][~d["near_singular_corner"]]),
+                 d["shear_rate"][~d["near_singular_corner"]]) for d in distributions.values()]
+        largest_stress = max((float(np.max(t)) for t, _ in kept if t.size), default=math.nan)
+        largest_rate = max((float(np.max(r)) for _, r in kept if r.size), default=math.nan)
+        corners = singular_points(solution)
+        if corners:
+            radius = singular_exclusion_radius(solution)
+            stress["excluded_near_singular_corners"] = {
+                "radius": radius, "points": [[c["x"], c["y"]] for c in corners]}
+            notes.append(f"wall maxima exclude {radius * 1e3:.3g} mm around {len(corners)} "
+                         "singular corner(s) (" + "; ".join(
+                             f"{c.get('kind', 'corner')} at ({c['x'] * 1e3:.4g}, "
+                             f"{c['y'] * 1e3:.4g}) mm" for c in corners)
+                         + "), where the computed stress grows without bound under "
+                         "refinement")
+    stress.update(mean=sum(stresses[n] * perimeters[n] for n in stresses) / total,
+                  max=largest_stress, per_wall=stresses)
+    if domain.kind == "axial":
+        stress["force_direction"] = {n: ("+z" if t > 0 else "-z" if t < 0 else "none")
+                                     for n, t in signed.items()}
+    rate = {"mean": sum(rates[n] * perimeters[n] for n in rates) / total, "max": largest_rate,
+            "per_wall": rates}
+    return {"wall_shear_stress": stress, "wall_shear_rate": rate}
+
+
+def _axial_summary(solution: Solution, signed: dict, out: dict, warnings: list[str],
+                   notes: list[str]) -> None:
+    domain = solution.domain
+    problem = solution.problem()
+    gradient = solution.pressure_gradient
+    flow_rate = problem.flow_rate(solution.u)
+    peak = float(np.max(np.abs(solution.u)))
+    # a net flow below round-off of the largest speed times the area has no direction
+    moving = abs(flow_rate) > 1e-12 * peak * domain.area
+    direction = (1.0 if flow_rate > 0 else -1.0) if moving else 0.0
+    out.update({
+        "pressure_gradient": gradient,
+        "flow_direction": {1.0: "+z", -1.0: "-z", 0.0: "none"}[direction],
+        # positive when the pressure falls along the flow
+        "pressure_drop_per_length": -gradient * (direction or 1.0),
+        "flow_rate": flow_rate,
+        "mean_velocity": abs(flow_rate) / domain.area,
+        "max_velocity": peak,
+        "max_velocity_signed": float(np.max(solution.u)),
+        "min_velocity": float(np.min(solution.u)),
+        "hydraulic_diameter": domain.hydraulic_diameter,
+        "cross_section_area": domain.area,
+        "moving_walls": [n for n, w in domain.walls.items() if w.value != 0],
+    })
+    if moving and out["min_velocity"] * out["max_velocity_signed"] < 0 and min(
+            abs(out["min_velocity"]), abs(out["max_velocity_signed"])) > 1e-6 * peak:
+        notes.append("part of the section flows against the net flow direction (axial "
+                     f"velocity from {out['min_velocity']:.4g} to "
+                     f"{out['max_velocity_signed']:.4g} m/s, positive toward +z)")
+    perimeters = {n: w.perimeter for n, w in domain.walls.items()}
+    # steady axial momentum: the pressure force on the section balances the wall drag
+    drag = sum(signed[n] * perimeters[n] for n in signed)
+    discrete_area = float(problem.load.sum())
+    out["force_balance_error"] = abs(drag + gradient * discrete_area) / max(
+        abs(drag), abs(gradient * discrete_area), 1e-300)
+    # work rates per length: the pressure's -G Q and each moving wall's U F (F the
+    # force of the wall on the fluid, -signed * perimeter); their sum is dissipated
+    pressure_power = -gradient * flow_rate
+    wall_power = sum(-domain.walls[n].value * signed[n] * perimeters[n] for n in signed)
+    wall_driven = wall_power > abs(pressure_power)
+    out["power_per_length"] = {"pressure": pressure_power, "walls": wall_power,
+                               "dissipated": pressure_power + wall_power}
+    out["driven_by"] = "moving walls" if wall_driven else "pressure gradient"
+    unit = "W/m^2" if domain.shape == "slit" else "W/m"
+    if wall_driven:
+        notes.append(f"driven mainly by moving walls ({wall_power:.4g} {unit} of wall work "
+                     f"against {pressure_power:.4g} {unit} of pressure work): no pumping power "
+                     "or Fanning friction factor is given, as both presume a pressure-driven "
+                     "flow")
+    else:
+        out["pumping_power_per_length"] = pressure_power
+    start = flow_start_pressure_gradient(solution)
+    yields = True
+    if start is not None:
+        out["flow_start_pressure_gradient"] = start
+        yields = abs(gradient) > start["value"]
+    out["yields"] = yields
+    if not yields:
+        return   # no Reynolds number or friction factor: see _yield_summary's warning
+    _reynolds_summary(solution, out, warnings, wall_driven, direction)
+
+
+def _reynolds_summary(solution: Solution, out: dict, warnings: list[str], wall_driven: bool,
+                      direction: float) -> None:
+    case, domain, model = solution.case, solution.domain, solution.model
+    rho = case.fluid.density
+    if rho is None:
+        out["laminar_check"] = "not made: no [fluid] density given"
+        warnings.append("no density given: no Reynolds number and no laminar check; the "
+                        "laminar assumption is not verified")
+        return
+    if not direction:
+        out["laminar_check"] = "not made: no net flow"
+        return
+    V, D = out["mean_velocity"], domain.hydraulic_diameter
+    re, definition = reynolds_number(solution, V, out["wall_shear_rate"]["mean"], D)
+    out["reynolds_number"] = re
+    out["reynolds_definition"] = definition
+    if not wall_driven:
+        # f = (-dp/dz along the flow) D_h / (2 rho V^2); with fixed walls this equals the
+        # mean wall shear stress over rho V^2 / 2 by the force balance
+        out["fanning_friction_factor"] = out["pressure_drop_per_length"] * D / (2 * rho * V ** 2)
+    critical, criterion = laminar_limit(model, rho, D)
+    compared, compared_name = re, "reynolds_number"
+    if model.name == "bingham":
+        # Hanks' criterion (Hanks 1963, AIChE J. 9) is stated on the plastic Reynolds
+        # number rho V D / mu_p and the Hedstrom number (Hedstrom 1952)
+        compared = bingham_plastic_reynolds(rho, V, D, model.plastic_viscosity)
+        compared_name = "plastic_reynolds_number"
+        out["plastic_reynolds_number"] = compared
+        out["hedstrom_number"] = hedstrom_number(rho, model.yield_stress,
+                                                 model.plastic_viscosity, D)
+    if domain.shape != "pipe":
+        criterion += f"; {APPROXIMATE_OFF_PIPE}"
+    out["laminar_limit"] = {"reynolds_number": critical, "compared": compared_name,
+                            "criterion": criterion}
+    out["laminar_check"] = "passed" if compared <= critical else "failed"
+    warning = laminar_warning(compared, critical, criterion)
+    if warning:
+        warnings.append(warning)
+
+
+def _rotational_summary(solution: Solution, out: dict, warnings: list[str]) -> None:
+    case = solution.case
+    torque, imbalance = torque_per_length(solution)
+    out["torque_per_length"] = torque
+    out["torque_imbalance"] = imbalance
+    out["inner_angular_speed"] = case.drive.inner_angular_speed
+    out["outer_angular_speed"] = case.drive.outer_angular_speed
+    out["power_per_length"] = torque * (case.drive.inner_angular_speed
+                                        - case.drive.outer_angular_speed)
+    g = case.geometry
+    if case.fluid.density is None:
+        out["laminar_check"] = "not made: no [fluid] density given"
+        warnings.append("no density given: no Taylor number and no check for Taylor vortices")
+        return
+    if case.drive.inner_angular_speed != 0:
+        gap = g.outer_radius - g.inner_radius
+        inner_rate = out["wall_shear_rate"]["per_wall"]["inner"]
+        eta = float(solution.model.viscosity(np.array([max(inner_rate, 1e-300)]))[0])
+        nu = eta / case.fluid.density
+        taylor = (case.drive.inner_angular_speed * g.inner_radius * gap / nu) ** 2 * (
+            gap / g.inner_radius)
+        out["taylor_number"] = taylor
+        out["laminar_check"] = "passed" if taylor <= CRITICAL_TAYLOR else "failed"
+        if taylor > CRITICAL_TAYLOR:
+            warnings.append(
+                f"Taylor number {taylor:.4g} exceeds {CRITICAL_TAYLOR:.0f} (narrow-gap "
+                "critical value, Taylor 1923; common practice as a limit): Taylor vortices "
+                "are likely and the purely azimuthal flow computed here does not hold")
+
+
+def _yield_summary(solution: Solution, point_fields: dict | None, out: dict,
+                   warnings: list[str]) -> None:
+    model, domain = solution.model, solution.domain
+    out["unyielded_fraction"] = unyielded_fraction(solution)
+    out["yield_stress"] = model.yield_stress
+    # moving walls always shear the material; with fixed walls the drive is compared
+    # with the section's flow-start gradient (see flow_start_pressure_gradient)
+    creeping = out.get("yields") is False
+    already = any("does not flow" in w for w in warnings)
+    if creeping and not already:
+        start = out["flow_start_pressure_gradient"]
+        warnings.append(f"the material does not yield: it does not flow below |dp/dz| = "
+                        f"{start['value']:.4g} Pa/m ({start['source']}); the small flow "
+                        "computed is creep of the regularised model, not a real flow, and "
+                        "no Reynolds number or friction factor is given")
+    if domain.dimension == 1 and point_fields is not None:
+        out["plugs"] = plug_intervals(point_fields["x"][0], point_fields["shear_stress"],
+                                      model.yield_stress)
+
+
+def _extrapolation_warnings(case, out: dict) -> list[str]:
+    warnings = []
     rate_range = case.fluid.fitted_rate_range
     if rate_range:
-        largest = out["wall_shear_rate"]["max"]
+        largest, mean = out["wall_shear_rate"]["max"], out["wall_shear_rate"]["mean"]
         if largest > rate_range[1]:
             warnings.append(f"the wall shear rate {largest:.4g} 1/s exceeds the highest rate of "
-                            f"the fluid card's data ({rate_range[1]:.4g} 1/s): the model is "
-                            "extrapolated")
-        if out["wall_shear_rate"]["mean"] < rate_range[0]:
-            warnings.append(f"the mean wall shear rate {out['wall_shear_rate']['mean']:.4g} 1/s "
-                            f"is below the lowest rate of the fluid card's data "
-                            f"({rate_range[0]:.4g} 1/s): the model is extrapolated")
+                            f"the fluid definition's data ({rate_range[1]:.4g} 1/s): the model "
+                            "is extrapolated")
+        if mean < rate_range[0]:
+            warnings.append(f"the mean wall shear rate {mean:.4g} 1/s is below the lowest rate "
+                            f"of the fluid definition's data ({rate_range[0]:.4g} 1/s): the "
+                            "model is extrapolated")
     temperature_range = case.fluid.fitted_temperature_range
     if temperature_range and case.fluid.temperature is not None and not (
             temperature_range[0] <= case.fluid.temperature <= temperature_range[1]):
         warnings.append(f"the case temperature {case.fluid.temperature - 273.15:.4g} degC lies "
-                        f"outside the fluid card's data ({temperature_range[0] - 273.15:.4g} to "
-                        f"{temperature_range[1] - 273.15:.4g} degC): the temperature law is "
+                        f"outside the fluid definition's data ({temperature_range[0] - 273.15:.4g}"
+                        f" to {temperature_range[1] - 273.15:.4g} degC): the temperature law is "
                         "extrapolated")
-    if case.fluid.temperature_law:
-        out["temperature"] = case.fluid.temperature
-        out["temperature_law"] = case.fluid.temperature_law
-    if not solution.converged:
-        warnings.append(solution.message)
-    out["warnings"] = warnings
-    out["assumptions"] = ASSUMPTIONS
-    out["caution"] = CAUTION
-    return out
+    return warnings
 
+
+def _non_finite(value, path: str = "") -> list[str]:
+    """Dotted names of the non-finite numbers in a summary."""
+    if isinstance(value, dict):
+        return [p for k, v in value.items() for p in _non_finite(v, f"{path}{k}.")]
+    if isinstance(value, (list, tuple)):
+        return [p for i, v in enumerate(value) for p in _non_finite(v, f"{path}{i}.")]
+    if isinstance(value, (float, np.floating)) and not math.isfinite(value):
+        return [path.rstrip(".")]
+    return []
+
+
+def _check_converged(solution: Solution, out: dict) -> None:
+    """Demote a converged solve whose summary fails its own checks: every number
+    finite, the force balance (axial) or torque balance (rotational) within tolerance."""
+    if not out["converged"]:
+        return
+    reasons = []
+    bad = _non_finite({k: v for k, v in out.items() if k != "regularisation"})
+    if bad:
+        reasons.append("non-finite " + ", ".join(bad[:5]))
+    tolerance = max(BALANCE_TOLERANCE, 100 * solution.case.solver.tolerance)
+    for key, name in (("force_balance_error", "force balance"),
+                      ("torque_imbalance", "torque balance")):
+        error = out.get(key)
+        if error is not None and not error <= tolerance:
+            reasons.append(f"{name} error {error:.3g} above {tolerance:.3g}")
+    if reasons:
+        out["converged"] = False
+        out["message"] = (f"not converged: the solver met its tolerance but the result fails "
+                          f"its checks ({'; '.join(reasons)})")

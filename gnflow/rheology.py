@@ -17,8 +17,9 @@ stays finite in unyielded regions:
 
 * Papanastasiou (1987), J. Rheol. 31, 385:
   ``tau = tau_y * (1 - exp(-m * rate)) + (viscous part)``, ``m`` in seconds;
-* bi-viscous: ``eta = viscous part + tau_y / max(rate, rate_c)``, i.e. a Newtonian
-  response with the large viscosity ``tau_y / rate_c`` below the critical rate.
+* bi-viscous (O'Donovan & Tanner 1984, J. Non-Newtonian Fluid Mech. 15):
+  ``eta = viscous part + tau_y / max(rate, rate_c)``, i.e. a Newtonian response with the
+  large viscosity ``tau_y / rate_c`` below the critical rate.
 
 >>> import numpy as np
 >>> PowerLaw(consistency=2.0, flow_index=0.5).viscosity(np.array([4.0]))
@@ -44,15 +45,32 @@ def _check_viscosity_pair(zero_shear: float, infinite_shear: float) -> None:
                         f"a value <= zero_shear_viscosity ({zero_shear:g} Pa s)")
 
 
-def _relaxed_exponential(x):
-    """``(1 - exp(-x)) / x`` and its derivative, accurate down to ``x = 0``."""
-    x = np.asarray(x, dtype=float)
-    small = x < 1e-4
-    xs = np.where(small, 1.0, x)
-    value = np.where(small, 1 - x / 2 + x * x / 6, -np.expm1(-xs) / xs)
-    derivative = np.where(small, -0.5 + x / 3 - x * x / 8,
-                          (xs * np.exp(-xs) + np.expm1(-xs)) / (xs * xs))
-    return value, derivative
+def _log(x):
+    """Natural log of a non-negative array, ``-inf`` at 0 without a warning."""
+    with np.errstate(divide="ignore"):
+        return np.log(np.asarray(x, dtype=float))
+
+
+def _exp(x):
+    """``exp`` that returns ``inf`` (without a warning) where the true value is beyond
+    the float range: the model evaluations below form their results in log space, so an
+    overflow here is a value that really is that large, not an intermediate one."""
+    with np.errstate(over="ignore"):
+        return np.exp(x)
+
+
+def _power(rate, exponent: float):
+    """``rate ** exponent`` for ``rate >= 0``: ``inf`` (no warning, no exception) where the
+    true value is beyond the float range or the rate is 0 and the exponent negative."""
+    with np.errstate(over="ignore", divide="ignore"):
+        return np.power(np.asarray(rate, dtype=float), exponent)
+
+
+def _softplus(t):
+    """``log(1 + exp(t))`` without overflow for large ``t`` (``t`` may be -inf)."""
+    t = np.asarray(t, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return np.maximum(t, 0.0) + np.log1p(np.exp(-np.abs(t)))
 
 
 class Model:
@@ -105,7 +123,8 @@ class Newtonian(Model):
 
 @dataclass(frozen=True)
 class PowerLaw(Model):
-    """Ostwald-de Waele power law: ``eta = K * rate**(n - 1)``.
+    """Ostwald-de Waele power law: ``eta = K * rate**(n - 1)`` (Ostwald 1925, Kolloid-Z.
+    36; de Waele 1923, J. Oil Colour Chem. Assoc. 6; both recalled from memory).
 
     ``n < 1`` shear-thinning, ``n > 1`` shear-thickening. Valid only over the range of
     rates it was fitted on; it has no Newtonian plateau.
@@ -123,22 +142,23 @@ class PowerLaw(Model):
         check_positive("flow_index", self.flow_index)
 
     def viscosity(self, rate):
-        rate = np.asarray(rate, dtype=float)
-        with np.errstate(divide="ignore"):
-            return self.consistency * rate ** (self.flow_index - 1)
+        return self.consistency * _power(rate, self.flow_index - 1)
 
     def viscosity_derivative(self, rate):
-        rate = np.asarray(rate, dtype=float)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return (self.flow_index - 1) * self.consistency * rate ** (self.flow_index - 2)
+        return (self.flow_index - 1) * self.consistency * _power(rate, self.flow_index - 2)
+
+    def stress(self, rate):
+        return self.consistency * _power(rate, self.flow_index)
 
 
 @dataclass(frozen=True)
 class CarreauYasuda(Model):
     """Carreau-Yasuda: ``eta = eta_inf + (eta_0 - eta_inf) (1 + (lambda rate)^a)^((n-1)/a)``.
 
-    ``a = 2`` is the Carreau model (Bird, Armstrong & Hassager, *Dynamics of Polymeric
-    Liquids*, vol. 1). Newtonian plateau ``eta_0`` below ``rate ~ 1/lambda``,
+    ``a = 2`` is the Carreau model (Carreau 1972, Trans. Soc. Rheol. 16; Bird, Armstrong &
+    Hassager, *Dynamics of Polymeric Liquids*, vol. 1); the exponent ``a`` is Yasuda's
+    (Yasuda, Armstrong & Cohen 1981, Rheol. Acta 20; recalled from memory). Valid for
+    ``rate >= 0``; evaluated in log space so that large ``lambda rate`` cannot overflow. Newtonian plateau ``eta_0`` below ``rate ~ 1/lambda``,
     power-law slope ``n - 1`` above it.
 
     >>> CarreauYasuda(1.0, 0.0, 1.0, 0.5, 2.0).viscosity(np.array([0.0]))
@@ -159,20 +179,23 @@ class CarreauYasuda(Model):
         check_positive("transition_exponent", self.transition_exponent)
 
     def viscosity(self, rate):
+        # (1 + x)^((n-1)/a) with x = (lambda rate)^a, formed in log space: x alone
+        # overflows long before the viscosity leaves the float range
         a, n = self.transition_exponent, self.flow_index
-        x = (self.time_constant * np.asarray(rate, dtype=float)) ** a
+        log_x = a * (np.log(self.time_constant) + _log(rate))
         return self.infinite_shear_viscosity + (
-            self.zero_shear_viscosity - self.infinite_shear_viscosity) * (1 + x) ** ((n - 1) / a)
+            self.zero_shear_viscosity - self.infinite_shear_viscosity) * _exp(
+                (n - 1) / a * _softplus(log_x))
 
     def viscosity_derivative(self, rate):
+        # (eta_0 - eta_inf) (n - 1) lambda (lambda rate)^(a-1) (1 + x)^((n-1-a)/a)
         a, n, lam = self.transition_exponent, self.flow_index, self.time_constant
         rate = np.asarray(rate, dtype=float)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            lam_rate_a1 = lam * (lam * rate) ** (a - 1)  # d/d rate of (lambda rate)^a, over a
-        lam_rate_a1 = np.where(rate > 0, lam_rate_a1, lam if a == 1 else 0.0)
-        x = (lam * rate) ** a
-        return ((self.zero_shear_viscosity - self.infinite_shear_viscosity) * (n - 1)
-                * lam_rate_a1 * (1 + x) ** ((n - 1 - a) / a))
+        log_lr = np.log(lam) + _log(rate)
+        with np.errstate(invalid="ignore"):
+            magnitude = lam * _exp((a - 1) * log_lr + (n - 1 - a) / a * _softplus(a * log_lr))
+        magnitude = np.where(rate > 0, magnitude, lam if a == 1 else 0.0)
+        return (self.zero_shear_viscosity - self.infinite_shear_viscosity) * (n - 1) * magnitude
 
 
 @dataclass(frozen=True)
@@ -193,7 +216,9 @@ class Carreau(CarreauYasuda):
 
 @dataclass(frozen=True)
 class Cross(Model):
-    """Cross (1965): ``eta = eta_inf + (eta_0 - eta_inf) / (1 + (lambda rate)^m)``.
+    """Cross (1965, J. Colloid Sci. 20): ``eta = eta_inf + (eta_0 - eta_inf) / (1 + (lambda rate)^m)``.
+
+    Valid for ``rate >= 0``; evaluated in log space (large ``lambda rate`` cannot overflow).
 
     >>> Cross(2.0, 0.0, 1.0, 1.0).viscosity(np.array([1.0]))
     array([1.])
@@ -211,23 +236,26 @@ class Cross(Model):
         check_positive("rate_exponent", self.rate_exponent)
 
     def viscosity(self, rate):
-        x = (self.time_constant * np.asarray(rate, dtype=float)) ** self.rate_exponent
+        # 1 / (1 + x) = exp(-log(1 + x)), x = (lambda rate)^m, in log space
+        log_x = self.rate_exponent * (np.log(self.time_constant) + _log(rate))
         return self.infinite_shear_viscosity + (
-            self.zero_shear_viscosity - self.infinite_shear_viscosity) / (1 + x)
+            self.zero_shear_viscosity - self.infinite_shear_viscosity) * _exp(-_softplus(log_x))
 
     def viscosity_derivative(self, rate):
+        # -(eta_0 - eta_inf) m lambda (lambda rate)^(m-1) / (1 + x)^2, in log space
         m, lam = self.rate_exponent, self.time_constant
         rate = np.asarray(rate, dtype=float)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            dx = m * lam * (lam * rate) ** (m - 1)
-        dx = np.where(rate > 0, dx, lam if m == 1 else 0.0)
-        x = (lam * rate) ** m
-        return -(self.zero_shear_viscosity - self.infinite_shear_viscosity) * dx / (1 + x) ** 2
+        log_lr = np.log(lam) + _log(rate)
+        with np.errstate(invalid="ignore"):
+            magnitude = m * lam * _exp((m - 1) * log_lr - 2 * _softplus(m * log_lr))
+        magnitude = np.where(rate > 0, magnitude, lam if m == 1 else 0.0)
+        return -(self.zero_shear_viscosity - self.infinite_shear_viscosity) * magnitude
 
 
 @dataclass(frozen=True)
 class HerschelBulkley(Model):
-    """Herschel-Bulkley: ``tau = tau_y + K rate^n`` where ``tau > tau_y``, rigid elsewhere.
+    """Herschel-Bulkley: ``tau = tau_y + K rate^n`` where ``tau > tau_y``, rigid elsewhere
+    (Herschel & Bulkley 1926, Kolloid-Z. 39).
 
     Regularised for computation (``regularisation`` = "papanastasiou" or "bi-viscous",
     ``regularisation_parameter`` = the exponent ``m`` in s, or the critical rate in 1/s).
@@ -263,18 +291,25 @@ class HerschelBulkley(Model):
         return "s" if self.regularisation == "papanastasiou" else "1/s"
 
     def _viscous(self, rate):
-        with np.errstate(divide="ignore"):
-            return self.consistency * rate ** (self.flow_index - 1)
+        return self.consistency * _power(rate, self.flow_index - 1)
 
     def _viscous_derivative(self, rate):
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return (self.flow_index - 1) * self.consistency * rate ** (self.flow_index - 2)
+        return (self.flow_index - 1) * self.consistency * _power(rate, self.flow_index - 2)
 
     def viscosity(self, rate):
         rate = np.asarray(rate, dtype=float)
         m = self.regularisation_parameter
         if self.regularisation == "papanastasiou":
-            plastic = self.yield_stress * m * _relaxed_exponential(m * rate)[0]
+            # tau_y m (1 - exp(-x)) / x with x = m rate: taken as tau_y (1 - exp(-x)) / rate
+            # where x is not small, so that no power of m can overflow for a very sharp
+            # regularisation; the series 1 - x/2 + x^2/6 below x = 1e-4
+            x = m * rate
+            small = x < 1e-4
+            xs = np.where(small, 0.0, x)
+            with np.errstate(over="ignore"):
+                series = self.yield_stress * m * (1 - x / 2 + x * x / 6)
+            plastic = np.where(small, series,
+                               self.yield_stress * -np.expm1(-xs) / np.where(small, 1.0, rate))
         else:
             plastic = self.yield_stress / np.maximum(rate, m)
         return self._viscous(rate) + plastic
@@ -283,11 +318,30 @@ class HerschelBulkley(Model):
         rate = np.asarray(rate, dtype=float)
         m = self.regularisation_parameter
         if self.regularisation == "papanastasiou":
-            plastic = self.yield_stress * m * m * _relaxed_exponential(m * rate)[1]
+            # tau_y m^2 f'(x) = tau_y (x e^-x - (1 - e^-x)) / rate^2 where x is not small;
+            # the series tau_y m^2 (-1/2 + x/3 - x^2/8) below x = 1e-4
+            x = m * rate
+            small = x < 1e-4
+            xs = np.where(small, 1.0, x)
+            safe = np.where(small, 1.0, rate)
+            with np.errstate(over="ignore", under="ignore"):
+                series = self.yield_stress * m * m * (-0.5 + x / 3 - x * x / 8)
+                large = self.yield_stress * (xs * np.exp(-xs) + np.expm1(-xs)) / (safe * safe)
+            plastic = np.where(small, series, large)
         else:
             safe = np.maximum(rate, m)
             plastic = np.where(rate > m, -self.yield_stress / (safe * safe), 0.0)
         return self._viscous_derivative(rate) + plastic
+
+    def stress(self, rate):
+        """tau = K rate^n + the regularised yield term; finite at rate = 0."""
+        rate = np.asarray(rate, dtype=float)
+        m = self.regularisation_parameter
+        if self.regularisation == "papanastasiou":
+            plastic = -self.yield_stress * np.expm1(-m * rate)
+        else:
+            plastic = self.yield_stress * rate / np.maximum(rate, m)
+        return self.consistency * _power(rate, self.flow_index) + plastic
 
     def parameters(self) -> dict:
         return {"yield_stress": self.yield_stress, "consistency": self.consistency,
@@ -296,7 +350,8 @@ class HerschelBulkley(Model):
 
 @dataclass(frozen=True)
 class Bingham(HerschelBulkley):
-    """Bingham plastic: ``tau = tau_y + mu_p rate`` where ``tau > tau_y``; regularised.
+    """Bingham plastic: ``tau = tau_y + mu_p rate`` where ``tau > tau_y``; regularised
+    (Bingham 1916, US Bur. Stand. Bull. 13; Bingham 1922, *Fluidity and Plasticity*).
 
     >>> b = Bingham(10.0, 0.1, "bi-viscous", 1e-3)
     >>> float(b.stress(np.array([100.0]))[0])

@@ -1,4 +1,4 @@
-"""Temperature laws: how a fluid card's viscosity follows the temperature.
+"""Temperature laws: how a fluid definition's viscosity follows the temperature.
 
 Two laws, each a frozen dataclass holding SI floats:
 
@@ -39,7 +39,7 @@ class Arrhenius:
 
     ``a_T = exp(E_a / R * (1/T - 1/T_ref))``, with ``E_a`` the activation energy of flow
     (J/mol), ``R`` the molar gas constant and ``T_ref`` the reference temperature (K) at
-    which the fluid card's parameters hold; ``a_T(T_ref) = 1``. A positive ``E_a`` makes
+    which the fluid definition's parameters hold; ``a_T(T_ref) = 1``. A positive ``E_a`` makes
     the liquid thinner as it warms.
 
     Validity: liquids well above their glass transition, over a limited span of
@@ -52,7 +52,8 @@ class Arrhenius:
 
     Worked example: water-like ``E_a = 15 kJ/mol``, ``T_ref = 20 degC``; at 40 degC
     ``a_T = exp(15000 / 8.3145 * (1/313.15 - 1/293.15)) = 0.675``, so 1.002 mPa s at
-    20 degC becomes 0.676 mPa s (the handbook value is 0.653 mPa s).
+    20 degC becomes 0.676 mPa s (the IAPWS 2008 formulation, Huber et al. 2009, gives
+    0.653 mPa s).
 
     >>> law = Arrhenius(activation_energy=15e3, reference_temperature=293.15)
     >>> round(1.002e-3 * law.shift(313.15), 7)
@@ -87,9 +88,9 @@ class Sutherland:
     Validity: dilute gases away from condensation; the viscosity does not depend on
     pressure there. For air with ``mu_ref = 1.716e-5 Pa s``, ``T_ref = 273.15 K``,
     ``S = 110.4 K`` (White, *Viscous Fluid Flow*, sec. 1-3; the same ``S`` as the U.S.
-    Standard Atmosphere 1976) it agrees with the air table of Incropera & DeWitt,
-    *Fundamentals of Heat and Mass Transfer*, Table A.4, within 1 % over 150-450 K and
-    2.5 % over 150-1000 K (measured in ``tests/test_temperature.py``).
+    Standard Atmosphere 1976) it agrees with the dilute-gas air correlation of Lemmon &
+    Jacobsen (2004), Int. J. Thermophys. 25, 21, within 1.2 % over 150-450 K and 4.1 %
+    over 150-1000 K (measured in ``tests/test_temperature.py``).
     Source: Sutherland (1893), Phil. Mag. 36, 507.
 
     Worked example, air at 300 K:

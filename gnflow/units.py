@@ -14,14 +14,28 @@ gnflow evaluate an arithmetic expression.
 
 from __future__ import annotations
 
+import functools
 import math
 import re
 
-import pint
-
 from .errors import CaseError
 
-registry = pint.UnitRegistry()
+
+@functools.lru_cache(maxsize=1)
+def unit_registry():
+    """The one pint registry, built on first use: importing pint and building its registry
+    takes about a second, which a case made of bare numbers (or ``gnflow --help``) should
+    not pay."""
+    import pint
+
+    return pint.UnitRegistry()
+
+
+def __getattr__(name: str):
+    if name == "registry":  # ``from gnflow.units import registry`` keeps working, lazily
+        return unit_registry()
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
 
 #: name -> (SI unit used in messages and printed summaries, pint dimensionality)
 DIMENSIONS = {
@@ -47,6 +61,14 @@ DIMENSIONS = {
 _NUMBER = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?|[-+]?(?:nan|inf|infinity))"
                      r"\s*(.*?)\s*$", re.IGNORECASE)
 _MAX_TEXT = 200
+# The unit part goes to pint only if it is short and made of unit names, small numbers,
+# "*", "/", "^" or "**" and parentheses: that bounds what pint can be asked to do (no
+# exponent of 1e400, no nesting a thousand deep, no text pint might spend long on).
+_MAX_UNIT_TEXT = 60
+_MAX_EXPONENT = 10.0
+_MAX_PARENTHESES = 3
+_UNIT_TOKEN = re.compile(r"\s+|\*\*|[*/^()\-]|(?:[^\W\d]|\u00b0)\w*|\d+(?:\.\d+)?")
+_UNIT_SYNTAX = 'unit names, numbers, "*", "/", "^" and parentheses, e.g. "Pa*s^0.45"'
 
 
 def si_unit(dimension: str, flow_index: float | None = None) -> str:
@@ -57,9 +79,41 @@ def si_unit(dimension: str, flow_index: float | None = None) -> str:
 
 
 def _target_units(dimension: str, flow_index: float | None):
+    registry = unit_registry()
     if dimension == "consistency":
         return registry.pascal * registry.second ** flow_index
     return registry.parse_units(DIMENSIONS[dimension] or "dimensionless")
+
+
+def _unit_text_problem(text: str) -> str | None:
+    """Why ``text`` is not offered to pint, or None if it may be."""
+    if len(text) > _MAX_UNIT_TEXT:
+        return f"the unit part is longer than {_MAX_UNIT_TEXT} characters"
+    tokens, position = [], 0
+    while position < len(text):
+        match = _UNIT_TOKEN.match(text, position)
+        if not match:
+            return f"could not read {text[position]!r} (a unit is made of {_UNIT_SYNTAX})"
+        position = match.end()
+        if not match.group().isspace():
+            tokens.append(match.group())
+    depth = 0
+    for index, token in enumerate(tokens):
+        depth += (token == "(") - (token == ")")
+        if depth > _MAX_PARENTHESES:
+            return f"parentheses more than {_MAX_PARENTHESES} deep"
+        if token == "-" and (index == 0 or tokens[index - 1] not in ("^", "**", "(")):
+            return "a minus sign outside an exponent"
+        if token[0].isdigit():
+            if len(token) > 8:
+                return "a number of more than 8 characters in the unit"
+            before = index - 1
+            while before >= 0 and tokens[before] in ("(", "-"):
+                before -= 1
+            is_exponent = before >= 0 and tokens[before] in ("^", "**")
+            if is_exponent and float(token) > _MAX_EXPONENT:
+                return f"an exponent above {_MAX_EXPONENT:g} in size"
+    return None
 
 
 def _expected(dimension: str, flow_index: float | None) -> str:
@@ -98,11 +152,12 @@ def quantity(value, dimension: str, key: str, flow_index: float | None = None) -
     if isinstance(value, bool):
         raise CaseError(key, value, expected)
     if isinstance(value, (int, float)):
-        number = float(value)
+        try:
+            number = float(value)
+        except OverflowError:  # an integer of more than 308 digits
+            raise CaseError(key, value, "a number below 1e308 in size") from None
         if not math.isfinite(number):
             raise CaseError(key, value, "a finite number")
-        if dimension == "temperature":
-            return number
         return number
     if not isinstance(value, str):
         raise CaseError(key, value, expected)
@@ -117,6 +172,12 @@ def quantity(value, dimension: str, key: str, flow_index: float | None = None) -
     unit_text = match.group(2)
     if not unit_text:
         return number
+    problem = _unit_text_problem(unit_text)
+    if problem:
+        raise CaseError(key, value, f"a known unit; {problem}")
+    import pint
+
+    registry = unit_registry()
     try:
         units = registry.parse_units(unit_text.replace("^", "**"))
     except Exception:  # pint raises several types for text it cannot read

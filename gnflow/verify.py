@@ -23,10 +23,21 @@ its walls kept by the parent edges; a file of 6-node (curved) triangles cannot b
 refined that way and is refused.
 
 Where there is no reference (a flow-rate target, or a shape without one), the finest
-level gets the Richardson-extrapolated value, the apparent order and the grid
+level gets the Richardson-extrapolated value (Richardson & Gaunt 1927, "The deferred
+approach to the limit", Phil. Trans. R. Soc. A 226), the apparent order and the grid
 convergence index of the three-grid procedure of Celik et al. (2008), with the safety
 factor 1.25 of Roache (1998); every level from the third on gets the same estimate
 with itself as the finest of three.
+
+Besides the headline quantity, every study follows the maximum wall shear stress and,
+for yield-stress fluids, the unyielded (plug) area fraction on each level, each with its
+own apparent order and GCI by the same three-grid procedure (no analytic reference is
+used for them).
+
+Round-off. An error or a difference between levels at or below the study's noise floor
+(:func:`noise_floor`: the solver tolerance, and never less than 1000 machine epsilons,
+relative to the quantity) carries no order: the level is reported as "converged to
+round-off" instead of an order or a GCI, which would be numbers read from noise.
 
 Error norms. The velocity error ``e = u_h - u`` is integrated on a quadrature basis of
 a much higher order than the solver's (the reference is not a polynomial), at the
@@ -43,10 +54,9 @@ from __future__ import annotations
 import csv
 import math
 import sys
-import time
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
+from typing import Callable, NamedTuple
 
 import numpy as np
 from skfem import Basis
@@ -54,8 +64,10 @@ from skfem import Basis
 from . import analytic
 from .case import Case, load_case
 from .convergence import ROACHE_SAFETY_FACTOR, grid_convergence_index, observed_orders
+from .sweep import cautions, print_cautions, progress_bar
 from .errors import CaseError
 from .export import atomic_directory
+from .results import Results
 from .solver import Solution, solve
 
 MIN_LEVELS, MAX_LEVELS = 2, 8
@@ -70,6 +82,13 @@ MAX_TRIANGLES_FILE = 1_000_000
 #: few points, and a rule this high keeps the quadrature error under the finest
 #: discretisation error of the suite
 ERROR_QUADRATURE_ORDER = 16
+#: the least noise floor of a study, relative: differences of solutions that agree to
+#: about this are round-off, whatever the solver tolerance
+ROUND_OFF_FLOOR = 1000 * np.finfo(float).eps
+ROUND_OFF_TEXT = "converged to round-off"
+#: the quantities every study follows besides its headline one (summary key -> label)
+SECONDARY = {"max_wall_shear_stress": "max wall shear stress",
+             "unyielded_fraction": "unyielded fraction"}
 
 Progress = Callable[[int, int, int, str], None]
 
@@ -88,9 +107,12 @@ class Level:
     iterations: int
     seconds: float
     unyielded_fraction: float | None = None
+    max_wall_shear_stress: float | None = None
     l2_error: float | None = None
     h1_error: float | None = None
     value_error: float | None = None  # relative error of ``value`` against the reference
+    l2_norm: float | None = None      # |u|_L2 and |u|_H1 of the reference, for relative
+    h1_norm: float | None = None      # round-off floors of the field errors
 
 
 @dataclass
@@ -109,6 +131,13 @@ class VerificationResult:
     h1_orders: np.ndarray | None = None
     value_orders: np.ndarray | None = None
     gci: list = field(default_factory=list)   # ThreeGridEstimate or None per level
+    #: the same per level for each of :data:`SECONDARY` that was measured
+    secondary_gci: dict = field(default_factory=dict)
+    noise: float = ROUND_OFF_FLOOR
+
+    def round_off(self, error, scale=1.0) -> bool:
+        """Whether an error (relative to ``scale``) is at the study's noise floor."""
+        return error is not None and abs(error) <= self.noise * abs(scale)
 
     @property
     def expected_orders(self) -> dict[str, float]:
@@ -287,8 +316,25 @@ def _exact_gradient(reference, model, x, rotational: bool):
     return signed / x if rotational else signed
 
 
-def error_norms(solution: Solution, reference) -> tuple[float, float]:
-    """``(|u_h - u|_L2, |u_h - u|_H1)`` with the area weight, on a high-order rule."""
+class ErrorNorms(NamedTuple):
+    """Velocity error norms and the reference's own norms (all area-weighted)."""
+
+    l2: float
+    h1: float
+    l2_reference: float
+    h1_reference: float
+
+
+def noise_floor(case: Case) -> float:
+    """The relative size below which a study's errors and differences are round-off:
+    the solver tolerance (a solution is no more exact than that), at least
+    :data:`ROUND_OFF_FLOOR`."""
+    return max(float(case.solver.tolerance), ROUND_OFF_FLOOR)
+
+
+def error_norms(solution: Solution, reference) -> ErrorNorms:
+    """``|u_h - u|_L2``, ``|u_h - u|_H1`` and ``|u|_L2``, ``|u|_H1`` with the area weight,
+    on a high-order rule."""
     domain = solution.domain
     basis = Basis(domain.basis.mesh, domain.basis.elem, intorder=ERROR_QUADRATURE_ORDER)
     x = np.asarray(basis.global_coordinates())
@@ -299,7 +345,8 @@ def error_norms(solution: Solution, reference) -> tuple[float, float]:
     exact_gradient = _exact_gradient(reference, solution.model, x[0], rotational)
     l2 = math.sqrt(float(np.sum((np.asarray(field_h) - exact) ** 2 * weight)))
     h1 = math.sqrt(float(np.sum((field_h.grad[0] - exact_gradient) ** 2 * weight)))
-    return l2, h1
+    return ErrorNorms(l2, h1, math.sqrt(float(np.sum(exact ** 2 * weight))),
+                      math.sqrt(float(np.sum(exact_gradient ** 2 * weight))))
 
 
 # --------------------------------------------------------------------------- the study
@@ -346,10 +393,11 @@ def run_verification(case: Case, levels: int = 4, ratio: float = 2.0,
         if progress:
             progress(index, levels, cells, "start")
         solution = solve(case, domain=next(domains)) if domains else solve(case, cells=cells)
-        summary = solution.summary()
+        summary = Results(solution).summary()
         value = solution.pressure_gradient if quantity == "pressure_gradient" \
             else summary[quantity]
-        l2 = h1 = value_error = None
+        norms = None
+        value_error = None
         if section_reference is not None:
             exact = section_reference[0]
             value_error = abs(value - exact) / max(abs(exact), 1e-300)
@@ -357,7 +405,7 @@ def run_verification(case: Case, levels: int = 4, ratio: float = 2.0,
             # the model as solved: its regularisation can depend on the mesh
             reference = reference_for(case, solution.model)
             if reference is not None:
-                l2, h1 = error_norms(solution, reference)
+                norms = error_norms(solution, reference)
                 exact = reference.torque_per_length if quantity == "torque_per_length" \
                     else reference.flow_rate
                 value_error = abs(value - exact) / max(abs(exact), 1e-300)
@@ -365,32 +413,50 @@ def run_verification(case: Case, levels: int = 4, ratio: float = 2.0,
                               _cell_size(solution, cells), float(value),
                               float(solution.pressure_gradient), solution.converged,
                               solution.iterations, solution.seconds,
-                              summary.get("unyielded_fraction"), l2, h1, value_error))
+                              summary.get("unyielded_fraction"),
+                              summary["wall_shear_stress"]["max"],
+                              norms.l2 if norms else None, norms.h1 if norms else None,
+                              value_error, norms.l2_reference if norms else None,
+                              norms.h1_reference if norms else None))
         if progress:
             progress(index, levels, cells, "done")
     result = VerificationResult(case, case.mesh.degree, float(ratio), quantity, measured,
-                                reference is not None or section_reference is not None)
+                                reference is not None or section_reference is not None,
+                                noise=noise_floor(case))
     h = [lv.h for lv in measured]
+    noise = result.noise
     if section_reference is not None:
         result.reference_value, result.reference_note = section_reference
         result.l2_orders = np.full(len(measured), np.nan)
         result.h1_orders = np.full(len(measured), np.nan)
-        result.value_orders = observed_orders(h, [lv.value_error for lv in measured])
+        result.value_orders = observed_orders(h, [lv.value_error for lv in measured], noise)
     elif result.has_reference:
         result.reference_value = (reference.torque_per_length if quantity ==
                                   "torque_per_length" else reference.flow_rate)
         result.reference_note = ("gnflow.analytic, model as solved"
                                  + (" (regularised)" if case.fluid.model.is_yield_stress
                                     else ""))
-        result.l2_orders = observed_orders(h, [lv.l2_error for lv in measured])
-        result.h1_orders = observed_orders(h, [lv.h1_error for lv in measured])
-        result.value_orders = observed_orders(h, [lv.value_error for lv in measured])
-    values = [lv.value for lv in measured]
-    result.gci = [None, None] + [grid_convergence_index(h[i - 2:i + 1], values[i - 2:i + 1],
-                                                        ROACHE_SAFETY_FACTOR)
-                                 for i in range(2, len(measured))]
-    result.gci = result.gci[:len(measured)]
+        # field errors are made relative to the reference's norms before the floor applies
+        result.l2_orders = observed_orders(
+            h, [lv.l2_error / max(lv.l2_norm, 1e-300) for lv in measured], noise)
+        result.h1_orders = observed_orders(
+            h, [lv.h1_error / max(lv.h1_norm, 1e-300) for lv in measured], noise)
+        result.value_orders = observed_orders(h, [lv.value_error for lv in measured], noise)
+    result.gci = three_grid_estimates(h, [lv.value for lv in measured], noise)
+    for key in SECONDARY:
+        values = [getattr(lv, key) for lv in measured]
+        if all(v is not None for v in values):
+            result.secondary_gci[key] = three_grid_estimates(h, values, noise)
     return result
+
+
+def three_grid_estimates(h, values, noise: float) -> list:
+    """The three-grid estimate of each level from the third on (``None`` before), each
+    level the finest of its three; differences at ``noise`` are round-off."""
+    estimates = [None, None] + [grid_convergence_index(h[i - 2:i + 1], values[i - 2:i + 1],
+                                                       ROACHE_SAFETY_FACTOR, noise)
+                                for i in range(2, len(values))]
+    return estimates[:len(values)]
 
 
 # --------------------------------------------------------------------------- files
@@ -406,16 +472,55 @@ def _cell(value, digits: int = 10) -> str:
     return f"{value:.{digits}g}" if math.isfinite(value) else ""
 
 
+ROUND_OFF_CELL = "round-off"
+
+
+def _relative_errors(result: VerificationResult, lv: Level) -> dict:
+    """A level's errors relative to the reference (what the noise floor applies to)."""
+    return {"l2": None if lv.l2_error is None else lv.l2_error / max(lv.l2_norm, 1e-300),
+            "h1": None if lv.h1_error is None else lv.h1_error / max(lv.h1_norm, 1e-300),
+            "value": lv.value_error}
+
+
+def _order_cell(result: VerificationResult, order, error, digits: int = 4,
+                text: bool = False) -> str:
+    """An observed order, or "round-off" where the error is at the noise floor."""
+    if result.round_off(error):
+        return ROUND_OFF_CELL
+    if order is None or not np.isfinite(order):
+        return "-" if text else ""
+    return f"{order:.2f}" if text else _cell(order, digits)
+
+
+def _estimate_cells(estimate, text: bool = False) -> list[str]:
+    """Extrapolated value, apparent order and GCI of a three-grid estimate, as cells."""
+    if estimate is None:
+        return ["-"] * 3 if text else [""] * 3
+    if estimate.round_off:
+        return ["-" if text else "", ROUND_OFF_CELL, ROUND_OFF_CELL]
+    if not estimate.converging:
+        return (["n/a", _order_text(estimate.apparent_order), "n/a"] if text else
+                ["", _cell(estimate.apparent_order, 4), ""])
+    if text:
+        return [f"{estimate.extrapolated_value:.8g}", _order_text(estimate.apparent_order),
+                f"{100 * estimate.gci_fine:.3g} %"]
+    return [_cell(estimate.extrapolated_value), _cell(estimate.apparent_order, 4),
+            _cell(estimate.gci_fine, 4)]
+
+
 def csv_rows(result: VerificationResult) -> tuple[list[str], list[list[str]]]:
-    """Header and rows of ``convergence.csv``."""
+    """Header and rows of ``convergence.csv``.
+
+    Order and GCI cells hold ``round-off`` where the error or the difference between
+    levels is at the study's noise floor (no order can be read there). The secondary
+    quantities (:data:`SECONDARY`) follow, each with its three-grid apparent order and GCI.
+    """
     q = result.quantity
     value_name = "flow_rate" if q == "pressure_gradient" else q
     header = ["level", "cells", "dofs", "h", value_name]
     if q != "torque_per_length":
         header.append("pressure_gradient")
     header += ["converged", "iterations"]
-    if result.case.fluid.model.is_yield_stress:
-        header.append("unyielded_fraction")
     if result.has_reference:
         error_name = f"{value_name}_error"
         header += ["l2_error", "h1_error", error_name, "l2_order", "h1_order",
@@ -423,6 +528,8 @@ def csv_rows(result: VerificationResult) -> tuple[list[str], list[list[str]]]:
     else:
         # the quantity studied is named: with a flow-rate target it is the pressure gradient
         header += [f"extrapolated_{q}", "apparent_order", "gci_fine"]
+    for key in result.secondary_gci:
+        header += [key, f"{key}_order", f"{key}_gci"]
     rows = []
     for i, lv in enumerate(result.levels):
         flow = result.case.drive.flow_rate if q == "pressure_gradient" else lv.value
@@ -430,23 +537,29 @@ def csv_rows(result: VerificationResult) -> tuple[list[str], list[list[str]]]:
         if q != "torque_per_length":
             row.append(_cell(lv.pressure_gradient))
         row += [_cell(lv.converged), _cell(lv.iterations)]
-        if result.case.fluid.model.is_yield_stress:
-            row.append(_cell(lv.unyielded_fraction))
         if result.has_reference:
+            relative = _relative_errors(result, lv)
             row += [_cell(lv.l2_error), _cell(lv.h1_error), _cell(lv.value_error),
-                    _cell(result.l2_orders[i], 4), _cell(result.h1_orders[i], 4),
-                    _cell(result.value_orders[i], 4)]
+                    _order_cell(result, result.l2_orders[i], relative["l2"]),
+                    _order_cell(result, result.h1_orders[i], relative["h1"]),
+                    _order_cell(result, result.value_orders[i], relative["value"])]
         else:
-            g = result.gci[i]
-            row += ["", "", ""] if g is None else [_cell(g.extrapolated_value),
-                                                   _cell(g.apparent_order, 4),
-                                                   _cell(g.gci_fine, 4)]
+            row += _estimate_cells(result.gci[i])
+        for key, estimates in result.secondary_gci.items():
+            row += [_cell(getattr(lv, key))] + _estimate_cells(estimates[i])[1:]
         rows.append(row)
     return header, rows
 
 
+def _aligned(head: list[str], lines: list[list[str]]) -> str:
+    widths = [max(len(h), *(len(c[k]) for c in lines)) for k, h in enumerate(head)]
+    out = ["  ".join(h.rjust(w) for h, w in zip(head, widths))]
+    out += ["  ".join(c.rjust(w) for c, w in zip(cols, widths)) for cols in lines]
+    return "\n".join(out)
+
+
 def format_table(result: VerificationResult) -> str:
-    """The terminal table: one line per level."""
+    """The terminal tables: the headline quantity per level, then the secondary ones."""
     q = result.quantity
     label = {"flow_rate": "flow rate", "torque_per_length": "torque/len",
              "pressure_gradient": "dp/dz"}[q]
@@ -459,20 +572,32 @@ def format_table(result: VerificationResult) -> str:
     for i, lv in enumerate(result.levels):
         cols = [str(lv.level), str(lv.cells), str(lv.dofs), f"{lv.value:.8g}"]
         if result.has_reference:
-            cols += [_error_text(lv.l2_error), _order_text(result.l2_orders[i]),
-                     _error_text(lv.h1_error), _order_text(result.h1_orders[i]),
-                     f"{lv.value_error:.3e}", _order_text(result.value_orders[i])]
+            relative = _relative_errors(result, lv)
+            cols += [_error_text(lv.l2_error),
+                     _order_cell(result, result.l2_orders[i], relative["l2"], text=True),
+                     _error_text(lv.h1_error),
+                     _order_cell(result, result.h1_orders[i], relative["h1"], text=True),
+                     f"{lv.value_error:.3e}",
+                     _order_cell(result, result.value_orders[i], relative["value"],
+                                 text=True)]
         else:
-            g = result.gci[i]
-            cols += ["-", "-", "-"] if g is None else [
-                f"{g.extrapolated_value:.8g}" if g.converging else "n/a",
-                _order_text(g.apparent_order),
-                f"{100 * g.gci_fine:.3g} %" if g.converging else "n/a"]
+            cols += _estimate_cells(result.gci[i], text=True)
         lines.append(cols)
-    widths = [max(len(h), *(len(c[k]) for c in lines)) for k, h in enumerate(head)]
-    out = ["  ".join(h.rjust(w) for h, w in zip(head, widths))]
-    out += ["  ".join(c.rjust(w) for c, w in zip(cols, widths)) for cols in lines]
-    return "\n".join(out)
+    out = _aligned(head, lines)
+    if result.secondary_gci:
+        head = ["level"]
+        for key in result.secondary_gci:
+            head += [SECONDARY[key] + (" [Pa]" if key == "max_wall_shear_stress" else ""),
+                     "app. order", "GCI"]
+        lines = []
+        for i, lv in enumerate(result.levels):
+            cols = [str(lv.level)]
+            for key, estimates in result.secondary_gci.items():
+                cols += [f"{getattr(lv, key):.6g}"] + _estimate_cells(estimates[i], True)[1:]
+            lines.append(cols)
+        out += ("\nalso followed on every level (three-grid apparent order and GCI, "
+                "Celik et al. 2008):\n" + _aligned(head, lines))
+    return out
 
 
 def _error_text(error) -> str:
@@ -531,6 +656,13 @@ def convergence_plot(result: VerificationResult, path: Path) -> None:
 
 def interpretation(result: VerificationResult) -> str:
     """One sentence on what the finest orders say."""
+    finest = _relative_errors(result, result.levels[-1])
+    if result.has_reference and result.round_off(finest["value"]) and (
+            finest["l2"] is None or result.round_off(finest["l2"])):
+        return (f"The finest level agrees with the reference to round-off (relative error "
+                f"{finest['value']:.1e}, noise floor {result.noise:.0e}): converged to "
+                "round-off, so there is no order or GCI to read; the discretisation "
+                "reproduces this case (as P2 does a quadratic profile).")
     if result.has_reference and result.levels[-1].l2_error is None:
         p, expected = result.value_orders[-1], result.expected_orders["flow_rate"]
         close = abs(p - expected) <= 0.3
@@ -553,6 +685,10 @@ def interpretation(result: VerificationResult) -> str:
     g = result.finest_gci
     if g is None:
         return "Two levels give no apparent order; use three or more for a GCI."
+    if g.round_off:
+        return (f"The finest levels give the same {result.quantity_label} to within the "
+                f"noise floor {result.noise:.0e}: converged to round-off, no order or GCI "
+                "to read.")
     if not g.converging:
         return f"The three finest levels do not show convergence ({g.note})."
     return (f"The three finest levels show {g.note}, a Richardson-extrapolated "
@@ -573,9 +709,14 @@ def markdown_report(result: VerificationResult, plot_name: str = "convergence.pn
              "* reference: " + (result.reference_note if result.has_reference else
                                 "none; discretisation uncertainty by the three-grid "
                                 "procedure of Celik et al. (2008), safety factor 1.25"),
+             "* also followed: " + ", ".join(SECONDARY[k] for k in result.secondary_gci)
+             + ", each with its three-grid apparent order and GCI",
+             f"* noise floor {result.noise:.0e} (relative): errors and differences below it "
+             f"read \"{ROUND_OFF_CELL}\", converged to round-off, with no order",
              "", "| " + " | ".join(header) + " |", "|" + "---|" * len(header)]
     lines += ["| " + " | ".join(r) + " |" for r in rows]
     lines += ["", interpretation(result), "", f"![convergence plot]({plot_name})", ""]
+    lines += [f"Caution: {text}" for text in cautions(case)] + [""]
     if not all(lv.converged for lv in result.levels):
         lines.insert(6, "* WARNING: the solver did not converge on every level; the orders "
                         "are not reliable")
@@ -599,34 +740,33 @@ def write_verification(result: VerificationResult, out_dir: Path) -> list[str]:
 
 # --------------------------------------------------------------------------- command
 
-def _terminal_progress(stream=None) -> Progress:
-    stream = stream or sys.stderr
-    started = {}
-
-    def report(index, total, cells, stage):
-        if stage == "start":
-            started[index] = time.perf_counter()
-            stream.write(f"  [{index}/{total}] solving on {cells} cells ...")
-            stream.flush()
-        else:
-            stream.write(f" {time.perf_counter() - started[index]:.2f} s\n")
-            stream.flush()
-    return report
-
-
 def run_verify_command(case_path, levels: int = 4, ratio: float = 2.0,
-                       out_dir=None) -> int:
-    """``gnflow verify``: run the study, print the table, write the files; returns 0."""
+                       out_dir=None, quiet: bool = False) -> int:
+    """``gnflow verify``: run the study, print the tables, write the files; returns 0."""
     case = load_case(case_path)
     plan_levels(case, levels, ratio)   # bad options fail before any solve
     out = Path(out_dir) if out_dir else Path("results") / f"{Path(case_path).stem}-verify"
-    print(f"gnflow verify: {case.title} ({case.fluid.model.name}, {case.geometry.shape}, "
-          f"P{case.mesh.degree}), {levels} levels at ratio {ratio:g}", flush=True)
-    result = run_verification(case, levels, ratio, progress=_terminal_progress())
-    print(format_table(result))
-    print(interpretation(result))
+    if not quiet:
+        print(f"gnflow verify: {case.title} ({case.fluid.model.name}, {case.geometry.shape}, "
+              f"P{case.mesh.degree}), {levels} levels at ratio {ratio:g}", flush=True)
+    bar = progress_bar(levels, f"verify: {levels} meshes of {case.geometry.shape}", "level",
+                       enabled=not quiet)
+
+    def progress(index, total, cells, stage):
+        if stage == "start":
+            bar.set_postfix_str(f"level {index}: {cells} cells", refresh=False)
+        else:
+            bar.update(1)
+
+    with bar:
+        result = run_verification(case, levels, ratio, progress=progress)
     written = write_verification(result, out)
-    print(f"  wrote {out}/: {', '.join(written)}")
     if not all(lv.converged for lv in result.levels):
         print("gnflow: WARNING: the solver did not converge on every level", file=sys.stderr)
+    if quiet:
+        return 0
+    print(format_table(result))
+    print(interpretation(result))
+    print(f"  wrote {out}/: {', '.join(written)}")
+    print_cautions(cautions(case))
     return 0

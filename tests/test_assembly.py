@@ -6,8 +6,8 @@ from skfem import asm
 
 from gnflow.case import Case
 from gnflow.geometry import build_domain
-from gnflow.solver import (Problem, axial_momentum, axial_residual, axial_tangent,
-                           stiffness_diagonal)
+from gnflow.solver import (Problem, area_integral, axial_momentum, axial_residual,
+                           axial_tangent, stiffness_diagonal)
 
 GEOMETRIES = {
     "pipe P2": ({"shape": "pipe", "radius": 0.01}, {"cells": 7, "degree": 2}),
@@ -45,3 +45,5 @@ def test_plan_equals_asm_of_the_forms(name):
                        atol=1e-12 * np.abs(residual).max())
     diagonal = asm(stiffness_diagonal, basis, coefficient=coefficient)
     assert np.allclose(problem.plan.diagonal(coefficient), diagonal, rtol=1e-12)
+    load = asm(area_integral, basis, area_weight=problem.area_weight)
+    assert np.allclose(problem.load, load, rtol=1e-12, atol=1e-14 * np.abs(load).max())

@@ -8,6 +8,7 @@ from pathlib import Path
 import pytest
 
 from gnflow.cli import main
+from gnflow.post import CAUTION
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = sorted((ROOT / "gnflow" / "examples").glob("*.toml"))
@@ -23,11 +24,14 @@ def test_run_every_example(case, tmp_path, capsys):
     out = tmp_path / "res"
     assert main(["run", str(case), "--out", str(out)]) == 0
     printed = capsys.readouterr().out
-    assert "caution" in printed and "assumes" in printed
+    assert "assumes" in printed
+    # the printout ends with the cautions, the general one last, and stores them
+    assert printed.rstrip().splitlines()[-1] == f"  caution: {CAUTION}"
     summary = json.loads((out / "summary.json").read_text())
+    assert summary["cautions"][-1] == CAUTION
     assert summary["converged"] is True
     assert summary["residual"] <= 1e-10
-    section = summary["shape"] in ("rectangle", "mesh") or "eccentric" in case.stem
+    section = summary["section_dimension"] == 2
     per_shape = ("wall_stress.csv", "wall_stress.png", "fields.png") if section else (
         "profile.csv", "profile.png")
     for name in ("summary.json", "convergence.png", "fields.vtu", "fields.xdmf") + per_shape:
@@ -115,3 +119,54 @@ def test_bad_case_exit_2_one_message_no_output(name, tmp_path):
 def test_missing_case_file(tmp_path, capsys):
     assert main(["run", str(tmp_path / "nope.toml")]) == 2
     assert "no such case file" in capsys.readouterr().err
+
+
+# --------------------------------------------------------------------------- the parser
+
+def _subparsers():
+    import argparse
+
+    from gnflow.cli import _build_parser
+    parser = _build_parser()
+    action = next(a for a in parser._actions if isinstance(a, argparse._SubParsersAction))
+    return parser, action.choices
+
+
+def test_every_positional_argument_has_help():
+    _, commands = _subparsers()
+    for name, sub in commands.items():
+        for action in sub._actions:
+            if not action.option_strings:
+                assert action.help, f"{name} {action.dest}"
+
+
+def test_negative_values_with_units_are_values_after_an_option():
+    parser, commands = _subparsers()
+    name = next(n for n, sub in commands.items() if "--from" in sub._option_string_actions)
+    for value in ("-1kPa/m", "-1 kPa/m", "-.5", "-2e3"):
+        args = parser.parse_args([name, "case.toml", "--from", value, "--to", "-20 kPa/m"])
+        assert args.start == value
+
+
+def test_a_misspelt_option_gets_a_suggestion(capsys):
+    with pytest.raises(SystemExit) as stop:
+        main(["run", "case.toml", "--otu", "res"])
+    assert stop.value.code == 2
+    err = capsys.readouterr().err
+    assert "did you mean --out?" in err and len(err.strip().splitlines()) == 1
+
+
+def test_demo_takes_a_name_without_toml_and_quiet(tmp_path, capsys):
+    out = tmp_path / "demo"
+    assert main(["demo", "--example", "polymer_transfer_pipe", "--out", str(out),
+                 "--quiet"]) == 0
+    assert capsys.readouterr().out == ""
+    assert json.loads((out / "summary.json").read_text())["converged"] is True
+    assert main(["demo", "--example", "polymer_transfer_pip"]) == 2
+    assert "did you mean polymer_transfer_pipe" in capsys.readouterr().err
+
+
+def test_check_is_quiet_on_request(capsys):
+    assert main(["check", str(ROOT / "cases" / "paste_slit_die.toml"), "--quiet"]) == 0
+    assert capsys.readouterr().out == ""
+

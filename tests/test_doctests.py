@@ -8,7 +8,8 @@ import pytest
 
 import gnflow
 
-MODULES = sorted(m.name for m in pkgutil.iter_modules(gnflow.__path__, "gnflow.")
+# every module, those of subpackages (gnflow.solver.*) included
+MODULES = sorted(m.name for m in pkgutil.walk_packages(gnflow.__path__, "gnflow.")
                  if m.name not in ("gnflow.__main__",))
 
 

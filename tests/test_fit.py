@@ -340,8 +340,36 @@ def test_single_shear_rate_table_fits_only_newtonian(tmp_path, capsys):
     data = Path(__file__).parent / "data" / "water_viscosity.csv"
     assert main(["fit", str(data), "--out", str(tmp_path / "fit")]) == 0
     out = capsys.readouterr().out
-    assert "left out power-law: the data hold a single shear rate" in out
+    assert "power-law not fitted: the data hold a single shear rate" in out
     report = json.loads((tmp_path / "fit" / "fit.json").read_text())
     assert [m["model"] for m in report["models"]] == ["newtonian"]
     assert main(["fit", str(data), "--models", "carreau", "--out", str(tmp_path / "x")]) == 2
     assert "single shear rate" in capsys.readouterr().err
+
+
+# --------------------------------------------------------------------------- warnings
+
+def test_rpm_as_a_shear_rate_and_thin_data_are_warned(tmp_path, capsys):
+    """A rotational speed is not a shear rate until a viscometer's geometry factor turns it
+    into one; 4 points for the 3 Herschel-Bulkley parameters leave 1 degree of freedom."""
+    path = tmp_path / "dial.csv"
+    path.write_text("shear_rate [rpm],shear_stress [Pa]\n10,12\n20,15\n50,19\n100,23\n")
+    out = tmp_path / "fit"
+    assert run_fit_command(str(path), None, str(out)) == 0
+    printed = capsys.readouterr().out
+    assert "WARNING: " in printed and "rotational speed" in printed
+    assert "herschel-bulkley: 4 points for 3 parameters leave 1 degree of freedom" in printed
+    assert "carreau not fitted: 4 points cannot determine its 4 parameters" in printed
+    assert printed.rstrip().splitlines()[-1].startswith("  caution: ")
+    report = json.loads((out / "fit.json").read_text())
+    assert any("rotational speed" in w for w in report["warnings"]) and report["caution"]
+
+
+def test_narrow_rate_span_is_warned_and_quiet_prints_only_warnings(tmp_path, capsys):
+    path = tmp_path / "narrow.csv"
+    rates = np.linspace(10.0, 30.0, 12)
+    path.write_text("shear_rate [1/s],shear_stress [Pa]\n" + "\n".join(
+        f"{g:.6g},{2.0 * g ** 0.6:.6g}" for g in rates))
+    assert run_fit_command(str(path), ["power-law"], str(tmp_path / "o"), quiet=True) == 0
+    captured = capsys.readouterr()
+    assert captured.out == "" and "span only a factor 3" in captured.err

@@ -1,4 +1,5 @@
-"""Fluid cards in cases: fit -> card -> case -> solve, temperature laws, extrapolation."""
+"""Fluid definitions in cases: fit -> definition -> case -> solve, temperature laws,
+extrapolation."""
 
 import math
 import tomllib
@@ -9,7 +10,7 @@ import pytest
 from gnflow import analytic
 from gnflow.case import Case
 from gnflow.errors import CaseError
-from gnflow.fit import fit_models, fluid_card, read_flow_curve
+from gnflow.fit import fit_models, fluid_definition, read_flow_curve
 from gnflow.solver import solve
 
 PIPE = {"geometry": {"shape": "pipe", "radius": "12 mm"},
@@ -26,7 +27,7 @@ def test_fit_card_case_solve_round_trip(tmp_path):
         f"{g:.6g},{t:.6g}" for g, t in zip(rate, stress)))
     data = read_flow_curve(data_file)
     best = fit_models(data, ["herschel-bulkley"])[0]
-    card = tomllib.loads(fluid_card(best, data))
+    card = tomllib.loads(fluid_definition(best, data))
     assert card["fluid"]["model"] == "herschel-bulkley"
     fitted = solve(Case.from_dict({**PIPE, "fluid": card["fluid"]})).summary()
     true = solve(Case.from_dict({**PIPE, "fluid": {"model": "herschel-bulkley",
@@ -59,10 +60,11 @@ def test_arrhenius_card_shifts_the_consistency():
 
 
 def test_sutherland_card_for_air():
-    """Air at 300 K: Sutherland with White's constants (mu_0 = 1.716e-5 Pa s at 273.15 K,
-    S = 110.4 K; White, Viscous Fluid Flow, Table 1-2) gives 1.846e-5 Pa s, as handbook
-    tables list for air at 300 K (Incropera & DeWitt, Table A.4: 184.6e-7 N s/m^2;
-    recalled from memory)."""
+    """Air at 300 K: Sutherland's law with White's constants (mu_0 = 1.716e-5 Pa s at
+    273.15 K, S = 110.4 K; White, Viscous Fluid Flow, Table 1-2, recalled from memory)
+    evaluates to 1.716e-5 (300/273.15)^1.5 383.55/410.4 = 1.846e-5 Pa s, within 0.4 % of
+    the Lemmon & Jacobsen (2004) dilute-gas correlation for air (1.852e-5 Pa s; see
+    tests/test_temperature.py)."""
     fluid = {"model": "newtonian", "viscosity": "1.716e-5 Pa*s", "temperature_law": "sutherland",
              "reference_temperature": "273.15 K", "sutherland_constant": "110.4 K",
              "temperature": "300 K"}
@@ -91,8 +93,8 @@ def test_bad_temperature_keys(fluid, key):
 
 
 def test_temperature_card_round_trip(tmp_path):
-    """A card fitted on data at 20, 40 and 60 degC (Arrhenius, 35 kJ/mol) predicts the flow
-    at 50 degC; the same card at 90 degC warns that it is extrapolated in temperature."""
+    """A definition fitted on data at 20, 40 and 60 degC (Arrhenius, 35 kJ/mol) predicts the flow
+    at 50 degC; the same definition at 90 degC warns that it is extrapolated in temperature."""
     rng = np.random.default_rng(11)
     rows = []
     for celsius in (20.0, 40.0, 60.0):
@@ -104,7 +106,7 @@ def test_temperature_card_round_trip(tmp_path):
     data_file.write_text("shear_rate [1/s],shear_stress [Pa],temperature [degC]\n"
                          + "\n".join(rows))
     data = read_flow_curve(data_file)
-    card = tomllib.loads(fluid_card(fit_models(data, ["power-law"])[0], data))["fluid"]
+    card = tomllib.loads(fluid_definition(fit_models(data, ["power-law"])[0], data))["fluid"]
     assert card["temperature_law"] == "arrhenius"
     warm = solve(Case.from_dict({**PIPE, "fluid": {**card, "temperature": "50 degC"}})).summary()
     shift = math.exp(35e3 / 8.314462618 * (1 / 323.15 - 1 / 313.15))
@@ -112,4 +114,4 @@ def test_temperature_card_round_trip(tmp_path):
     assert warm["flow_rate"] == pytest.approx(exact, rel=0.05)
     assert not [w for w in warm["warnings"] if "temperature" in w]
     hot = solve(Case.from_dict({**PIPE, "fluid": {**card, "temperature": "90 degC"}})).summary()
-    assert any("outside the fluid card's data" in w for w in hot["warnings"])
+    assert any("outside the fluid definition's data" in w for w in hot["warnings"])

@@ -121,9 +121,8 @@ def test_yield_stress_section_reports_unyielded_region():
 def _write_rectangle_mesh(path, width, height, cells_x, cells_y):
     """The triangles gnflow builds for a rectangle, written in gmsh 2.2 format with the
     four sides as named physical groups."""
-    from skfem import MeshTri
-    mesh = MeshTri.init_tensor(np.linspace(0, width, cells_x + 1),
-                               np.linspace(0, height, cells_y + 1))
+    from gnflow.geometry import _rectangle_mesh
+    mesh = _rectangle_mesh(np.linspace(0, width, cells_x + 1), np.linspace(0, height, cells_y + 1))
     points = np.column_stack([mesh.p.T, np.zeros(mesh.nvertices)])
     boundary = mesh.boundary_facets()
     ends = mesh.facets[:, boundary]

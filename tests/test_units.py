@@ -1,6 +1,8 @@
 """Unit conversions against NIST SP 811 (2008), Appendix B, conversion factors."""
 
 import math
+import subprocess
+import sys
 
 import pytest
 
@@ -49,3 +51,51 @@ def test_bad_values_name_the_key(value, fragment):
 def test_consistency_unit_must_match_flow_index():
     with pytest.raises(CaseError, match="fluid.consistency"):
         quantity("2 Pa*s^0.6", "consistency", "fluid.consistency", 0.45)
+
+
+@pytest.mark.parametrize("text, fragment", [
+    ("3 m^99999", "an exponent above 10"),
+    ("3 m**-11", "an exponent above 10"),
+    ("2 ((((m))))", "parentheses more than 3 deep"),
+    ("1 m" + "*m" * 40, "longer than 60 characters"),
+    ("1 m-2", "a minus sign outside an exponent"),
+    ("1 m\x07", "could not read '\\x07'"),
+    ("1 m 123456789", "more than 8 characters"),
+])
+def test_unit_text_is_bounded_before_pint_reads_it(text, fragment):
+    with pytest.raises(CaseError) as err:
+        quantity(text, "length", "geometry.gap")
+    message = str(err.value)
+    assert "geometry.gap" in message and fragment in message
+    assert message.isprintable() and len(message) <= 185
+
+
+@pytest.mark.parametrize("text, dimension, expected", [
+    ("2 Pa*m^-1", "pressure_gradient", 2.0),           # exponents within the bound
+    ("4 kPa*m^(-1)", "pressure_gradient", 4000.0),
+    ("3 kg*m^-1*s^-2", "stress", 3.0),
+    ("5 (kg/(m*s))", "viscosity", 5.0),
+])
+def test_unit_text_within_the_bounds_still_converts(text, dimension, expected):
+    assert quantity(text, dimension, "k") == pytest.approx(expected, rel=1e-12)
+
+
+def test_integers_beyond_the_float_range_are_refused():
+    with pytest.raises(CaseError, match=r"geometry.gap = <an integer of about 401 digits>"):
+        quantity(10 ** 400, "length", "geometry.gap")
+
+
+def test_pint_is_imported_only_for_unit_strings():
+    """A case of bare numbers does not pay for pint's import (start-up time)."""
+    code = ("import sys; from gnflow.case import Case\n"
+            "Case.from_dict({'fluid': {'model': 'newtonian', 'viscosity': 0.05},"
+            " 'geometry': {'shape': 'pipe', 'radius': 0.02},"
+            " 'drive': {'pressure_gradient': -100.0}})\n"
+            "print('pint' in sys.modules)\n"
+            "Case.from_dict({'fluid': {'model': 'newtonian', 'viscosity': '50 cP'},"
+            " 'geometry': {'shape': 'pipe', 'radius': 0.02},"
+            " 'drive': {'pressure_gradient': -100.0}})\n"
+            "print('pint' in sys.modules)\n")
+    result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                            timeout=120)
+    assert result.stdout.split() == ["False", "True"], result.stderr

@@ -13,10 +13,13 @@ import csv
 import numpy as np
 import pytest
 
+import gnflow
+
 from gnflow.case import Case
 from gnflow.cli import main
 from gnflow.errors import CaseError
-from gnflow.verify import level_cells, run_verification, run_verify_command
+from gnflow.verify import (csv_rows, format_table, interpretation, level_cells,
+                           run_verification, run_verify_command)
 
 SMOOTH = {
     "newtonian annulus": ({"model": "newtonian", "viscosity": 1.0},
@@ -111,7 +114,9 @@ def test_verify_command_end_to_end(tmp_path, capsys):
     out = tmp_path / "out"
     assert main(["verify", str(path), "--levels", "3", "--out", str(out)]) == 0
     printed = capsys.readouterr()
-    assert "L2 error" in printed.out and "[3/3]" in printed.err
+    assert "L2 error" in printed.out and "3/3 levels" in printed.err
+    assert "verify: 3 meshes of annulus" in printed.err   # the progress says what it runs
+    assert printed.out.rstrip().splitlines()[-1].startswith("  caution: ")
     assert sorted(p.name for p in out.iterdir()) == ["convergence.csv", "convergence.png",
                                                     "report.md"]
     with open(out / "convergence.csv", newline="") as handle:
@@ -151,7 +156,8 @@ def test_eccentric_annulus_p2_flow_rate_order():
     assert all(lv.l2_error is None and lv.h1_error is None for lv in result.levels)
     # h is the representative (area / triangles)^(1/2) of the triangles meshed
     area = np.pi * (0.03 ** 2 - 0.01 ** 2)
-    assert result.levels[0].h == pytest.approx(np.sqrt(area / 200))
+    triangles = gnflow.solve(case).domain.basis.mesh.nelements
+    assert result.levels[0].h == pytest.approx(np.sqrt(area / triangles))
 
 
 POWER_LAW_RECTANGLE = """title = "power law in a duct"
@@ -242,3 +248,41 @@ def test_mesh_file_of_curved_triangles_cannot_be_refined(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "geometry.shape" in err and "fixes the mesh" in err
     assert not (tmp_path / "o").exists()
+
+
+# --------------------------------------------------------------------------- round-off
+# P2 reproduces the quadratic Newtonian slit profile (Bird, Stewart & Lightfoot, plane
+# Poiseuille flow), so every error is round-off and no order may be printed for it.
+
+def test_exact_case_is_reported_as_converged_to_round_off():
+    case = _case({"model": "newtonian", "viscosity": 1.0}, {"shape": "slit", "gap": 0.01},
+                 {"pressure_gradient": -100.0}, cells=4, degree=2)
+    result = run_verification(case, levels=3)
+    assert all(np.isnan(result.l2_orders)) and all(np.isnan(result.value_orders))
+    table = format_table(result)
+    assert "round-off" in table and "converged to round-off" in interpretation(result)
+    header, rows = csv_rows(result)
+    assert rows[2][header.index("flow_rate_order")] == "round-off"
+    without = run_verification(case, levels=3, use_reference=False)
+    assert without.finest_gci.round_off and "round-off" in interpretation(without)
+    assert np.isnan(without.finest_gci.gci_fine)
+
+
+def test_plug_fraction_and_wall_stress_are_followed_per_level():
+    """Herschel-Bulkley slit: the wall stress is G h / 2 = 50 Pa on every mesh (force
+    balance), hence round-off; the plug fraction converges toward 2 tau_y / (G h) = 0.4
+    (the plug half-width tau_y / G over the half gap; Bird, Stewart & Lightfoot's
+    Bingham slit argument) and gets an order of its own."""
+    case = _case({"model": "herschel-bulkley", "yield_stress": 20.0, "consistency": 2.0,
+                  "flow_index": 0.5}, {"shape": "slit", "gap": 0.01},
+                 {"pressure_gradient": -10000.0}, cells=8, degree=2)
+    result = run_verification(case, levels=4)
+    assert set(result.secondary_gci) == {"max_wall_shear_stress", "unyielded_fraction"}
+    assert [lv.max_wall_shear_stress for lv in result.levels] == pytest.approx([50.0] * 4)
+    assert result.secondary_gci["max_wall_shear_stress"][-1].round_off
+    plug = result.secondary_gci["unyielded_fraction"][-1]
+    assert plug.converging and not plug.round_off
+    assert result.levels[-1].unyielded_fraction == pytest.approx(0.4, abs=0.01)
+    header, rows = csv_rows(result)
+    assert {"unyielded_fraction_order", "unyielded_fraction_gci",
+            "max_wall_shear_stress_gci"} <= set(header)

@@ -264,7 +264,8 @@ def regularisation_study(lines):
 
 
 def gci_section(lines):
-    lines += ["## No analytic reference: Richardson extrapolation and the GCI", "",
+    lines += ["## No analytic reference: Richardson extrapolation (Richardson & Gaunt 1927) "
+              "and the GCI", "",
               "A flow-rate target has no closed-form counterpart for the pressure gradient, "
               "so the study reports the three-grid procedure of Celik et al. (2008) with "
               "safety factor 1.25 on the finest level.", "",

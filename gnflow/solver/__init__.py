@@ -18,8 +18,10 @@ flow rate one more equation (a bordered Newton system), so the target is met to 
 solver tolerance in the same iteration.
 
 Yield-stress fluids are solved with the regularisation parameter raised by continuation
-until it reaches the value chosen from the case's own scales (see
-:func:`default_regularisation`).
+(:mod:`gnflow.solver.continuation`) until it reaches the value chosen from the case's
+own scales (see :func:`default_regularisation`). ``solve`` dispatches: exact yield-stress
+flow (``[fluid.regularisation] method = "none"``) to :mod:`.exact`, helical annular flow
+to :mod:`.coupled`, everything else to the regularised Newton solve below.
 """
 
 
@@ -31,15 +33,17 @@ from dataclasses import replace
 
 import numpy as np
 
-from .. import rheology
 from ..case import Case
 from ..geometry import Domain, build_domain
 from .assembly import (RATE_FLOOR, AssemblyPlan, Problem, area_integral, axial_momentum,  # noqa: F401
                        axial_residual, axial_tangent, stiffness_diagonal)
+from .continuation import (Outcome, RegularisationError, RegularisationSchedule,  # noqa: F401
+                           continue_regularisation, iterate_once, regularisation_error,
+                           sharpness_wanted)
 from .linear import DIRECT_LIMIT, DIRECT_LIMIT_2D, LinearSolver  # noqa: F401
-from .newton import initial_state, newton, picard, picard_step
+from .newton import initial_state, newton, picard, picard_step  # noqa: F401
 from .scales import (REGULARISATION_SHARPNESS, characteristic_rate, default_regularisation,  # noqa: F401
-                     expected_to_yield, invert_flow_curve)
+                     expected_to_yield, invert_flow_curve, stopping_warnings)
 from .sequencing import SEQUENCING_LIMIT, interpolated
 from .solution import Iteration, Solution, _History  # noqa: F401
 
@@ -55,176 +59,204 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
     >>> round(solve(case).summary()["flow_rate"], 9)   # -G h^3 / (12 mu) per unit width
     1.0
     """
+    if getattr(case.fluid, "regularisation", None) == "none":
+        from .exact import solve_exact
+        return solve_exact(case, domain=domain, cells=cells, progress=progress)
+    if _is_helical(case):
+        from .coupled import solve_helical
+        return solve_helical(case, domain=domain, cells=cells, progress=progress)
+    if getattr(case, "heat", None) is not None:
+        from .heat import solve_heated
+        return solve_heated(case, case.heat, domain=domain, cells=cells, progress=progress)
     started = time.perf_counter()
     domain = domain or build_domain(case, cells)
-    coarse = None
-    if (domain.dimension == 2 and domain.shape in ("rectangle", "annulus")
-            and domain.dofs > SEQUENCING_LIMIT and domain.cells >= 4
-            and case.fluid.model.name != "newtonian"):  # a linear problem: one solve
-        # the coarse solution is only a start: a loose tolerance there suffices
-        rough = replace(case, solver=replace(case.solver,
-                                             tolerance=max(case.solver.tolerance, 1e-6)))
-        coarse = solve(rough, cells=domain.cells // 2, estimate_regularisation=False,
-                       progress=progress)
-        if not coarse.converged:
-            coarse = None
-    spec = case.solver
-    model = case.fluid.model
+    coarse = _sequenced_coarse(case, domain, progress)
     history = _History(progress)   # progress(entry) is called on every iteration
+    problem, start, soft_start, wanted_for = _setup(case, domain, coarse)
+    if case.fluid.model.is_yield_stress:
+        outcome = continue_regularisation(problem, start, soft_start, case.drive.flow_rate,
+                                          case.solver, history, wanted_for)
+    else:
+        outcome = iterate_once(problem, *start, case.drive.flow_rate, case.solver.method,
+                               case.solver.tolerance, case.solver.max_iterations, history, 0)
+    problem.model = outcome.model
+    if outcome.failure:
+        history.append(Iteration(outcome.iterations, case.solver.method, math.inf, 0.0,
+                                 outcome.gradient))
+    solution = _finish(case, domain, problem, outcome, history, time.perf_counter() - started)
+    solution.coarse = coarse
+    if case.fluid.model.is_yield_stress:
+        solution.regularisation = _regularisation_report(
+            case, problem, outcome, estimate_regularisation and solution.converged)
+        if estimate_regularisation and solution.converged:
+            solution.warnings.extend(stopping_warnings(case, domain, solution))
+            if domain.dimension == 2:
+                solution.regularisation.update(_mesh_error(case, solution))
+    solution.seconds = time.perf_counter() - started
+    return solution
+
+
+def _is_helical(case: Case) -> bool:
+    """An annulus with a rotating wall: axial and azimuthal flow coupled (helical)."""
+    drive = case.drive
+    return case.geometry.shape == "annulus" and bool(
+        getattr(drive, "inner_angular_speed", 0.0) or getattr(drive, "outer_angular_speed", 0.0))
+
+
+def _sequenced_coarse(case: Case, domain: Domain, progress) -> Solution | None:
+    """A converged solve on a mesh half as fine, as the start of a large 2-D nonlinear
+    solve (grid sequencing), or None."""
+    if not (domain.dimension == 2 and domain.shape in ("rectangle", "annulus")
+            and domain.dofs > SEQUENCING_LIMIT and domain.cells >= 4
+            and case.fluid.model.name != "newtonian"):   # a linear problem: one solve
+        return None
+    # the coarse solution is only a start: a loose tolerance there suffices
+    rough = replace(case, solver=replace(case.solver, tolerance=max(case.solver.tolerance, 1e-6)))
+    coarse = solve(rough, cells=domain.cells // 2, estimate_regularisation=False,
+                   progress=progress)
+    return coarse if coarse.converged else None
+
+
+def _setup(case: Case, domain: Domain, coarse: Solution | None):
+    """The problem with its first model, the start state, a soft restart and the
+    regularisation the flow calls for."""
+    model = case.fluid.model
     rate = characteristic_rate(case, domain, model)
-    yields = expected_to_yield(case, domain, model)
-    regularisation = None
-    yield_stress = model.is_yield_stress
     user_parameter = case.fluid.regularisation_parameter
-    if yield_stress:
+    schedule = RegularisationSchedule(getattr(model, "regularisation", "papanastasiou"))
+
+    def regularised(softening: float):
         # The stress-consistent start (see initial_state) is close enough for Newton at
         # the target sharpness, so the solve starts there; if that fails it begins again
-        # soft and sharpens by continuation.
-        def regularised_start(softening):
-            start = default_regularisation(model, rate) * (
-                softening if model.regularisation == "papanastasiou" else 1 / softening)
-            if user_parameter is not None:
-                start = min(start, user_parameter) if model.regularisation == \
-                    "papanastasiou" else max(start, user_parameter)
-            return model.with_regularisation(start)
-        sharp_start = True   # cleared when the sharp start has failed once
-        soft_model = regularised_start(1e-3)
-        model = regularised_start(1.0) if sharp_start else soft_model
-    if coarse is not None and yield_stress:
-        model = coarse.model  # already regularised as sharply as the flow needs
-    problem = Problem(domain, model)
+        # soft (softening 1e3) and sharpens by continuation.
+        parameter = schedule.softened(default_regularisation(model, rate), softening)
+        if user_parameter is not None:
+            parameter = min(parameter, user_parameter) if schedule.grows else \
+                max(parameter, user_parameter)
+        return model.with_regularisation(parameter)
+    if model.is_yield_stress:
+        model = coarse.model if coarse is not None else regularised(1.0)
+    problem = _problem(case, domain, model)
     problem.rate_floor = RATE_FLOOR * rate
-    problem.linear = LinearSolver(spec.linear_solver, problem.free.size,
+    problem.linear = LinearSolver(case.solver.linear_solver, problem.free.size,
                                   dimension=domain.dimension)
     if coarse is not None:
         u = interpolated(coarse, domain)
         for wall in domain.walls.values():
             u[wall.dofs] = wall.value
-        gradient = coarse.pressure_gradient
+        start = (u, coarse.pressure_gradient)
     else:
-        u, gradient = initial_state(problem, case, model, rate)
-    target = case.drive.flow_rate
-    iterate = newton if spec.method == "newton" else picard
-    budget = spec.max_iterations
-    used = 0
-    converged = False
-    stages = 0
-    final_stage = not yield_stress
-    step = 10.0          # how much sharper each continuation stage makes the regularisation
-    last_good = None     # (u, gradient, model) of the last stage that converged
-    papanastasiou = yield_stress and model.regularisation == "papanastasiou"
-    while True:
-        # intermediate stages of the regularisation continuation need only be rough, and
-        # get a bounded share of the iterations so that a hard stage can be retried
-        tolerance = spec.tolerance if final_stage else max(spec.tolerance, 1e-6)
-        allowance = budget - used if final_stage else min(budget - used, 40)
-        try:
-            u_new, g_new, converged, used = iterate(problem, u, gradient, target, tolerance,
-                                                    allowance, history, used)
-        except (RuntimeError, np.linalg.LinAlgError, ValueError) as err:
-            # a singular or non-finite system: report it as a failure to converge
-            converged, u_new, g_new = False, u, gradient
-            failure = f"the linear solver failed ({err})"
-            history.append(Iteration(used, spec.method, math.inf, 0.0, gradient))
-        else:
-            failure = None
-        if converged:
-            u, gradient = u_new, g_new
-        if not yield_stress or used >= budget:
-            break
-        if not converged:
-            if last_good is None and sharp_start:
-                # the sharp start failed: begin again, soft, and continue from there
-                sharp_start, model = False, soft_model
-                problem.model = model
-                u, gradient = initial_state(problem, case, model, rate)
-                continue
-            if last_good is None or step < 1.2:
-                break
-            # the stage was too big a jump: go back and sharpen more gently
-            u, gradient, model = last_good
-            step = math.sqrt(step)
-            final_stage = False
-        else:
-            last_good = (u, gradient, model)
-            largest = float(np.max(problem.shear_rate(u)))
-            # a fluid that barely yields (or not at all) creeps with vanishing rates: the
-            # regularisation is never made sharper than the case's own rate scale needs
-            scale = max(largest, (1e-3 if yields else 1.0) * rate)
-            wanted = user_parameter if user_parameter is not None else \
-                default_regularisation(case.fluid.model, scale)
-            current = model.regularisation_parameter
-            done = (current >= wanted * (1 - 1e-9)) if papanastasiou else \
-                (current <= wanted * (1 + 1e-9))
-            if done:
-                if final_stage:
-                    break
-                final_stage = True
-                continue
-        stages += 1
-        current = model.regularisation_parameter
-        following = min(current * step, wanted) if papanastasiou else \
-            max(current / step, wanted)
-        model = model.with_regularisation(following)
-        problem.model = model
-    problem.model = model
-    if yield_stress:
-        estimate = _regularisation_error(problem, u, gradient, target, spec) \
-            if converged and estimate_regularisation else None
-        regularisation = {"method": model.regularisation,
-                          "parameter": model.regularisation_parameter,
-                          "unit": model.regularisation_unit,
-                          "chosen": "user" if user_parameter is not None else "automatic",
-                          "continuation_stages": stages,
-                          "error_estimate": estimate,
-                          "error_estimate_definition": (
-                              "relative change of the flow rate (torque) when the "
-                              "regularisation is made half as sharp; the error of a "
-                              "regularisation falls as 1/sharpness, so this estimates it")}
-    residual = problem.relative_residual(u, gradient)
-    converged = converged and residual <= spec.tolerance
+        start = _initial_state(problem, case, model, rate)
+
+    def soft_start():
+        soft = regularised(1e3)
+        problem.model = soft
+        return (*_initial_state(problem, case, soft, rate), soft)
+    wanted_for = sharpness_wanted(problem, case.fluid.model, user_parameter, rate,
+                                  expected_to_yield(case, domain, case.fluid.model))
+    return problem, start, soft_start, wanted_for
+
+
+def _problem(case: Case, domain: Domain, model) -> Problem:
+    """The discrete problem: with slip laws on some walls (:mod:`.slip`), their dofs become
+    unknowns and the slip terms join the balance."""
+    laws = getattr(case.drive, "slip", None)
+    if not laws:
+        return Problem(domain, model)
+    from .slip import SlipProblem, WallSlip, speed_scale
+    return SlipProblem(domain, model, WallSlip(domain, laws, model,
+                                               speed_scale(case, domain, model)))
+
+
+def _initial_state(problem: Problem, case: Case, model, rate: float):
+    """The stress-consistent start; a Newtonian one if the model cannot be evaluated."""
+    try:
+        return initial_state(problem, case, model, rate)
+    except (ArithmeticError, ValueError, RuntimeError, np.linalg.LinAlgError):
+        return problem.boundary_values(), case.drive.pressure_gradient or 0.0
+
+
+def _finish(case: Case, domain: Domain, problem: Problem, outcome: Outcome, history,
+            seconds: float) -> Solution:
+    """The :class:`Solution` of an outcome, with the message saying how it ended."""
+    spec = case.solver
+    u, gradient, used = outcome.u, outcome.gradient, outcome.iterations
+    try:
+        residual = problem.relative_residual(u, gradient)
+    except (ArithmeticError, ValueError):
+        residual = math.inf
+    finite = bool(np.all(np.isfinite(u)) and math.isfinite(residual))
+    converged = outcome.converged and finite and residual <= spec.tolerance
+    shown = f"{residual:.2e}" if math.isfinite(residual) else "not finite"
     if converged:
-        message = f"converged in {used} iterations (relative residual {residual:.2e})"
-    elif failure:
-        message = (f"not converged: {failure} after {used} iterations; last relative "
-                   f"residual {residual:.2e}")
+        message = f"converged in {used} iterations (relative residual {shown})"
+    elif outcome.failure:
+        message = (f"not converged: {outcome.failure} after {used} iterations; last relative "
+                   f"residual {shown}")
     else:
         message = (f"not converged: {spec.method} reached {used} of {spec.max_iterations} "
-                   f"iterations with relative residual {residual:.2e} "
+                   f"iterations with relative residual {shown} "
                    f"(tolerance {spec.tolerance:.1e})")
-        if spec.method == "picard":
-            message += "; try solver.method = \"newton\""
-        else:
-            message += "; try more solver.max_iterations or a finer mesh"
-    solution = Solution(case, domain, model, u,
+        message += ("; try solver.method = \"newton\"" if spec.method == "picard" else
+                    "; try more solver.max_iterations or a finer mesh")
+    if not finite:
+        # never hand non-finite numbers to post-processing: keep the wall values only
+        u = problem.boundary_values()
+        gradient = gradient if math.isfinite(gradient) else 0.0
+    solution = Solution(case, domain, problem.model, u,
                         float(gradient) if domain.kind == "axial" else 0.0,
                         bool(converged), used, float(residual), history, message,
-                        time.perf_counter() - started, regularisation, [], problem.rate_floor)
-    solution.linear_solver = {"method": problem.linear.method,
-                              "amg_setups": problem.linear.setups,
-                              "cg_iterations": sum(problem.linear.cg_iterations)}
-    solution.coarse = coarse
-    problem.model = model
+                        seconds, None, [], problem.rate_floor)
+    solution.linear_solver = problem.linear.report()
     solution._problem = problem
     return solution
 
 
-def _regularisation_error(problem: Problem, u, gradient, target, spec) -> float | None:
-    """Relative change of the flow rate (or torque) with the regularisation half as sharp."""
+def _regularisation_report(case: Case, problem: Problem, outcome: Outcome,
+                           estimate: bool) -> dict:
+    """What the summary says about the regularisation used and the error it causes."""
     model = problem.model
-    factor = 0.5 if model.regularisation == "papanastasiou" else 2.0
-    softer = problem.sibling(model.with_regularisation(model.regularisation_parameter * factor))
-    # an estimate of a 1e-4-sized effect to two digits: a residual of 1e-7 is enough
-    u2, g2, ok, _ = newton(softer, u.copy(), gradient, target, max(spec.tolerance, 1e-7), 50,
-                            [], 0)
-    if not ok:
-        return None
-    if problem.domain.kind == "rotational":
-        inner = problem.domain.walls["inner"].dofs
-        sharp = problem.internal_force(u)[inner].sum()
-        soft = softer.internal_force(u2)[inner].sum()
-    elif target is not None:
-        sharp, soft = gradient, g2
-    else:
-        sharp, soft = problem.flow_rate(u), softer.flow_rate(u2)
-    return float(abs(soft - sharp) / max(abs(sharp), 1e-300))
+    error = regularisation_error(problem, outcome.u, outcome.gradient,
+                                 case.drive.flow_rate, case.solver) if estimate else None
+    report = {"method": model.regularisation,
+              "parameter": model.regularisation_parameter,
+              "unit": model.regularisation_unit,
+              "chosen": "user" if case.fluid.regularisation_parameter is not None else "automatic",
+              "continuation_stages": outcome.stages,
+              "error_estimate": error.estimate if error else None,
+              "error_estimate_definition": RegularisationError.definition}
+    if error is not None:
+        report["error_estimate_ratio"] = error.observed_ratio
+        report["error_estimate_reliable"] = error.reliable
+        if not error.reliable:
+            report["advice"] = (
+                "the regularisation error does not fall as 1/sharpness here (the flow is "
+                "near its stopping limit); the estimate is a lower bound: solve with "
+                "[fluid.regularisation] method = \"none\" (exact yield-stress flow)")
+    return report
+
+
+def _mesh_error(case: Case, solution: Solution) -> dict:
+    """The mesh's share of the error of a 2-D regularised solve: the same regularised
+    problem (same parameter) solved on a mesh half as fine.
+
+    Estimate ``|Q_h - Q_2h| / |Q_h|``, the Richardson estimate for first-order
+    convergence: near yield surfaces the solution is only C^1, so P2 converges at about
+    first order in the flow rate there, and ``p = 1`` is the cautious choice.
+    """
+    domain = solution.domain
+    if domain.shape not in ("rectangle", "annulus") or domain.cells < 8:
+        return {}
+    fixed = replace(case, fluid=replace(case.fluid,
+                                        regularisation_parameter=solution.model.regularisation_parameter))
+    coarse = solve(fixed, cells=domain.cells // 2, estimate_regularisation=False)
+    if not coarse.converged:
+        return {"mesh_error_estimate": None}
+    fine_q = solution.problem().flow_rate(solution.u)
+    coarse_q = coarse.problem().flow_rate(coarse.u)
+    if case.drive.flow_rate is not None:
+        fine_q, coarse_q = solution.pressure_gradient, coarse.pressure_gradient
+    return {"mesh_error_estimate": abs(fine_q - coarse_q) / max(abs(fine_q), 1e-300),
+            "mesh_error_estimate_definition": (
+                f"relative change of the headline quantity between {domain.cells} and "
+                f"{domain.cells // 2} cells at the same regularisation (first order assumed)")}

@@ -8,6 +8,7 @@ R(u)[v] = int a s^2 eta(g) grad u . grad v dx + G int a v dx, with g = s |grad u
 from __future__ import annotations
 
 import copy
+import math
 
 import numpy as np
 import scipy.sparse as sp
@@ -60,6 +61,15 @@ def stiffness_diagonal(v, w):
 def area_integral(v, w):
     """``int a v dx``: the flow rate of a field ``v`` (and the load of a unit G)."""
     return w.area_weight * v
+
+
+def _norm(x: np.ndarray) -> float:
+    """Euclidean norm without underflow or overflow of the squares (entries down to the
+    smallest subnormal, up to the largest float)."""
+    largest = float(np.max(np.abs(x), initial=0.0))
+    if not (largest > 0.0 and math.isfinite(largest)):
+        return largest
+    return largest * float(np.linalg.norm(x / largest))
 
 
 class AssemblyPlan:
@@ -139,11 +149,16 @@ class Problem:
         x = np.asarray(basis.global_coordinates())
         self.area_weight = domain.area_weight(x)
         self.rate_factor = domain.rate_factor(x)
-        self.load = asm(area_integral, basis, area_weight=self.area_weight)  # int a v
+        # int a v, as asm(area_integral, ...) gives it, without the form machinery
+        # (a 1-D case is solved in milliseconds; the general assembly costs several)
+        values = np.array([basis.basis[i][0].value for i in range(basis.Nbfun)])
+        self.load = np.bincount(basis.element_dofs.ravel(),
+                                weights=np.sum(values * (self.area_weight * basis.dx), axis=2).ravel(),
+                                minlength=basis.N)
         self.fixed = domain.wall_dofs
         self.free = np.setdiff1d(np.arange(basis.N), self.fixed)
         self.rate_floor = 0.0
-        self.linear = LinearSolver("direct", self.free.size)
+        self.linear = LinearSolver("direct", self.free.size, dimension=domain.dimension)
         self._plan = None
         self._memo = None
 
@@ -204,11 +219,18 @@ class Problem:
         """
         gradient, coefficient, _ = self._coefficients(u, False)
         internal = self.plan.force(coefficient * gradient)
-        weight = 1.0 / np.sqrt(self.plan.diagonal(coefficient))
+        diagonal = self.plan.diagonal(coefficient)
+        # The ratio does not change if the weights are scaled by one constant; scaling
+        # them so that the stiffest dof has weight 1 keeps the weighted forces in range
+        # where |D^-1/2 r| itself would underflow (a viscosity of 1e267 with a load of
+        # 1e-205 gives 1e-338): an underflowed residual and scale must not read as 0/0
+        # made "converged".
+        weight = np.sqrt(np.max(diagonal[self.free], initial=0.0) / diagonal)
         residual = (internal + pressure_gradient * self.load)[self.free] * weight[self.free]
-        scale = max(np.linalg.norm(internal * weight),
-                    np.linalg.norm(pressure_gradient * self.load * weight), 1e-300)
-        return float(np.linalg.norm(residual) / scale)
+        scale = max(_norm(internal * weight), _norm(pressure_gradient * self.load * weight))
+        if scale == 0.0:
+            return 0.0 if _norm(residual) == 0.0 else math.inf
+        return float(_norm(residual) / scale)
 
     def tangent(self, u) -> sp.csr_matrix:
         """The consistent Newton tangent on the free dofs."""
@@ -231,6 +253,7 @@ class Problem:
 
     def sibling(self, model: rheology.Model) -> "Problem":
         """The same discrete problem with another model (sharing the assembly plan)."""
+        self.plan   # built here, so that neither copy builds its own
         other = copy.copy(self)
         other.model = model
         other._memo = None

@@ -49,6 +49,11 @@ def newton(problem: Problem, u, gradient, target_rate, tol, max_iterations, hist
             d_gradient = (target_rate - problem.flow_rate(u) - problem.flow_rate(du)) / \
                 problem.flow_rate(dg)
             du += d_gradient * dg
+        if d_gradient == 0.0 and not np.any(du):
+            # a nonzero residual whose correction is exactly zero: the velocities the
+            # balance asks for lie below the floating-point range (they underflow)
+            raise FloatingPointError("the Newton correction underflows to zero: the "
+                                     "velocities are below the floating-point range")
         # the full Newton step when it reduces the residual (quadratic convergence near
         # the solution), else the minimum of the dissipation along the direction
         step = 1.0
@@ -157,8 +162,14 @@ def initial_state(problem: Problem, case: Case, model: rheology.Model, rate: flo
     gradient = case.drive.pressure_gradient or 0.0
     u, gradient = picard_step(newtonian, newtonian.boundary_values(), gradient,
                                case.drive.flow_rate)
-    if problem.domain.kind != "axial" or model.name == "newtonian":
+    if model.name == "newtonian":
         return u, gradient
+    if problem.domain.kind != "axial":
+        # smooth fluids converge from the Newtonian start in a few iterations; a partly
+        # yielded gap needs the statics-consistent start (else 70-100+ iterations)
+        if not model.is_yield_stress:
+            return u, gradient
+        return _rotational_start(problem, newtonian, reference, model, u)
     # The Newtonian stress field is the exact one wherever statics fixes the stress (slit
     # and pipe without moving walls) and close to it elsewhere; the viscosity the model
     # has at that stress, point by point, gives a start far closer than any constant.
@@ -171,22 +182,56 @@ def initial_state(problem: Problem, case: Case, model: rheology.Model, rate: flo
     return picard_step(problem, u, gradient, case.drive.flow_rate, coefficient)
 
 
+def _rotational_start(problem: Problem, newtonian: Problem, reference, model, u):
+    """A start for rotational flow from statics: the torque is constant across the gap,
+    so the stress is ``M / (2 pi r^2)`` for every fluid, and only its size ``M`` is
+    unknown. The Newtonian stress has that shape; it is scaled by the factor ``c`` at
+    which the model's rates give the prescribed speed difference,
+    ``int rate(c tau_N) / r dr = int rate_N / r dr``, and the viscosity at that stress,
+    point by point, starts a Picard step."""
+    rate_n = newtonian.shear_rate(u)
+    stress = reference.viscosity_value * rate_n
+    weight = problem.plan.dx / problem.rate_factor      # d(omega) = rate / r dr
+    wanted = float(np.sum(rate_n * weight))
+    if not (wanted > 0 and np.all(np.isfinite(stress))):
+        return u, 0.0
+    start = np.maximum(rate_n, 1e-300)
+
+    def mismatch(log_c):
+        return math.log(max(float(np.sum(_rates_at_stress(
+            model, math.exp(log_c) * stress, start) * weight)), 1e-300)) - math.log(wanted)
+    low, high = -40.0, 40.0
+    if not mismatch(low) < 0 < mismatch(high):
+        return u, 0.0
+    from scipy.optimize import brentq
+    scale = math.exp(brentq(mismatch, low, high, xtol=1e-3))   # a start: 0.1 % will do
+    rates = _rates_at_stress(model, scale * stress, start)
+    viscosity = model.viscosity(np.maximum(rates, problem.rate_floor))
+    if not np.all(np.isfinite(viscosity)) or not np.all(viscosity > 0):
+        return u, 0.0
+    coefficient = problem.area_weight * problem.rate_factor ** 2 * viscosity
+    return picard_step(problem, u, 0.0, None, coefficient)
+
+
 def _rates_at_stress(model: rheology.Model, stress, start) -> np.ndarray:
     """Shear rates at which the model's stress equals ``stress`` (array), by a
     safeguarded Newton iteration on log(rate), vectorised; a few digits suffice here."""
-    target = np.log(np.maximum(stress, 1e-300))
-    log_rate = np.log(start)
+    stress, start = np.broadcast_arrays(np.asarray(stress, dtype=float),
+                                        np.asarray(start, dtype=float))
+    target = np.log(np.maximum(stress, 1e-300)).ravel()
+    log_rate = np.log(start).ravel()   # a new array: ravel of a fresh result
+    active = np.arange(log_rate.size)
     with np.errstate(all="ignore"):
         for _ in range(30):
-            rate = np.exp(log_rate)
+            # only the points not yet converged: a point of vanishing stress (on an axis
+            # of symmetry) walks toward the floor in clipped steps and would keep every
+            # other point iterating
+            rate = np.exp(log_rate[active])
             tau = model.stress(rate)
             slope = model.stress_derivative(rate) * rate / np.maximum(tau, 1e-300)
-            step = (np.log(np.maximum(tau, 1e-300)) - target) / np.maximum(slope, 1e-3)
-            log_rate = log_rate - np.clip(step, -5.0, 5.0)
-            if np.max(np.abs(step)) < 1e-6:
+            step = (np.log(np.maximum(tau, 1e-300)) - target[active]) / np.maximum(slope, 1e-3)
+            log_rate[active] -= np.clip(step, -5.0, 5.0)
+            active = active[~(np.abs(step) < 1e-6)]
+            if active.size == 0:
                 break
-    return np.exp(np.clip(log_rate, -690, 690))
-
-
-#: 2-D structured sections with more unknowns than this are solved first on a mesh half
-#: as fine (recursively), and the result interpolated as the fine mesh's initial state
+    return np.exp(np.clip(log_rate, -690, 690)).reshape(stress.shape)

@@ -20,13 +20,18 @@ from ..geometry import Domain
 REGULARISATION_SHARPNESS = 2e3
 
 def invert_flow_curve(model: rheology.Model, stress: float) -> float:
-    """The shear rate at which the model's stress equals ``stress`` (> 0)."""
+    """The shear rate at which the model's stress equals ``stress`` (> 0), clipped to
+    [e^-60, e^60] 1/s; NaN if the stress is not finite or the flow curve is undefined
+    (NaN) at those ends (a model whose values leave the floating-point range)."""
     def gap(log_rate):
         return float(model.stress(np.array([math.exp(log_rate)]))[0]) - stress
     low, high = -60.0, 60.0
-    if gap(low) >= 0:
+    gap_low, gap_high = gap(low), gap(high)
+    if not math.isfinite(stress) or math.isnan(gap_low) or math.isnan(gap_high):
+        return math.nan
+    if gap_low >= 0:
         return math.exp(low)
-    if gap(high) <= 0:
+    if gap_high <= 0:
         return math.exp(high)
     return math.exp(brentq(gap, low, high, xtol=1e-10))
 
@@ -54,7 +59,9 @@ def characteristic_rate(case: Case, domain: Domain, model: rheology.Model) -> fl
                 rates.append(1e-3 * invert_flow_curve(_viscous_part(model), wall_stress))
         if d.flow_rate is not None:
             rates.append(6 * abs(d.flow_rate) / domain.area / L)
-    return max(max(rates), 1e-300)
+    # a flow curve beyond the floating-point range gives no scale: 1 1/s then stands in
+    finite = [r for r in rates if math.isfinite(r)]
+    return max(max(finite, default=1.0), 1e-300)
 
 
 def expected_to_yield(case: Case, domain: Domain, model: rheology.Model) -> bool:
@@ -83,3 +90,77 @@ def default_regularisation(model: rheology.Model, largest_rate: float) -> float:
     if model.regularisation == "papanastasiou":
         return REGULARISATION_SHARPNESS / largest_rate
     return largest_rate / REGULARISATION_SHARPNESS
+
+
+def rectangle_stopping_gradient(width: float, height: float, yield_stress: float) -> float:
+    """|dp/dz| below which a Bingham or Herschel-Bulkley fluid does not flow in a
+    ``width x height`` rectangular duct with fixed walls (Pa/m).
+
+    The limit load is ``tau_y h(Omega)`` with ``h`` the Cheeger constant of the section
+    (Mosolov & Miasnikov 1965, J. Appl. Math. Mech. 29); for a convex section the Cheeger
+    set is the union of the discs of radius ``r = 1/h`` inside it, with ``r`` fixed by
+    ``|Omega_{-r}| = pi r^2`` (Kawohl & Lachand-Robert 2006, Pacific J. Math. 225, recalled
+    from memory). For a rectangle ``(a - 2r)(b - 2r) = pi r^2``, so
+
+        r = ((a + b) - sqrt((a + b)^2 - (4 - pi) a b)) / (4 - pi),   G_c = tau_y / r;
+
+    for a square of side L this is the Mosolov-Miasnikov value ``G_c = (2 + sqrt(pi)) tau_y / L``.
+
+    >>> round(rectangle_stopping_gradient(1.0, 1.0, 1.0), 6)   # 2 + sqrt(pi)
+    3.772454
+    """
+    a, b = width, height
+    r = ((a + b) - math.sqrt((a + b) ** 2 - (4 - math.pi) * a * b)) / (4 - math.pi)
+    return yield_stress / r
+
+
+def stopping_gradient(domain: Domain, yield_stress: float) -> float | None:
+    """The 2-D section's own stopping pressure gradient (Pa/m), or None if unknown.
+
+    The closed form for rectangles, else the exact method's limit-load computation
+    (:func:`gnflow.solver.exact.flow_stop_pressure_gradient`).
+    """
+    if domain.shape == "rectangle":
+        x = domain.basis.mesh.p
+        return rectangle_stopping_gradient(float(np.ptp(x[0])), float(np.ptp(x[1])), yield_stress)
+    try:
+        from .exact import flow_stop_pressure_gradient
+    except ImportError:
+        return None
+    try:
+        return abs(float(flow_stop_pressure_gradient(domain, yield_stress)))
+    except (ArithmeticError, RuntimeError, ValueError, np.linalg.LinAlgError):
+        return None
+
+
+#: Within this factor above the stopping drive, a regularised solve is unreliable
+NEAR_STOP = 1.1
+
+
+def stopping_warnings(case: Case, domain: Domain, solution) -> list[str]:
+    """Warnings for a 2-D pressure-driven yield-stress flow at or near its stopping limit.
+
+    The test compares the drive with the section's stopping pressure gradient
+    (:func:`stopping_gradient`), not the largest wall stress with the yield stress: in 2-D
+    the wall stress is not uniform and the fluid stops at a drive above the one at which
+    the largest wall stress reaches the yield stress.
+    """
+    model = solution.model
+    moving = any(v != 0 for v in case.drive.wall_speed.values())
+    if domain.dimension != 2 or domain.kind != "axial" or moving:
+        return []
+    critical = stopping_gradient(domain, model.yield_stress)
+    if not critical:
+        return []
+    share = abs(solution.pressure_gradient) / critical
+    if share <= 1.0:
+        return [f"the pressure gradient is {share:.3g} of the section's stopping pressure "
+                f"gradient {critical:.4g} Pa/m: the material does not flow; the small flow "
+                "computed is creep of the regularised model, not a real flow"]
+    if share <= NEAR_STOP:
+        return [f"the pressure gradient is only {share:.3g} times the section's stopping "
+                f"pressure gradient {critical:.4g} Pa/m: near that limit the regularised flow "
+                "and its plug are sensitive to the regularisation and to the mesh (see "
+                "regularisation.mesh_error_estimate); the exact method "
+                "([fluid.regularisation] method = \"none\") is the reliable choice"]
+    return []

@@ -4,42 +4,70 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..geometry import Domain
+from ..geometry import Domain, reference_coordinates
 from .solution import Solution
 
 SEQUENCING_LIMIT = 20_000
 
+# coarse triangles (nearest by centroid) searched for each fine dof: long thin cells
+# put the containing triangle's centroid farther away than several neighbours' centroids
+CANDIDATES = 24
+# a point whose best straight-triangle barycentric coordinate is below this lies in no
+# candidate (it cannot happen on nested sections; guarded all the same)
+OUTSIDE = -0.5
+
+
+def _barycentric(p: np.ndarray, t: np.ndarray, x: np.ndarray, tind: np.ndarray) -> np.ndarray:
+    """Barycentric coordinates (lambda_1, lambda_2) of points ``x`` (2, N) in the straight
+    triangles ``tind`` (N,); lambda_0 = 1 - lambda_1 - lambda_2."""
+    a, b, c = p[:, t[0, tind]], p[:, t[1, tind]], p[:, t[2, tind]]
+    e1, e2, d = b - a, c - a, x - a
+    det = e1[0] * e2[1] - e1[1] * e2[0]
+    return np.array([(e2[1] * d[0] - e2[0] * d[1]) / det, (e1[0] * d[1] - e1[1] * d[0]) / det])
+
 
 def interpolated(coarse: Solution, domain: Domain) -> np.ndarray:
-    """The coarse solution evaluated at the fine mesh's dofs.
+    """The coarse solution evaluated at the fine mesh's dofs; never raises for a point the
+    coarse mesh's inverse map cannot place.
 
-    The coarse field is evaluated on a straight-sided copy of its mesh (same dofs); each
-    fine dof is located in the coarse triangle, among its nearest ones, whose
-    barycentric coordinates are least negative, so that points in the thin slivers
-    between a curved wall and its chords are extrapolated from the adjacent triangle.
+    Each fine dof is located among its :data:`CANDIDATES` nearest coarse triangles as the
+    one whose straight-triangle barycentric coordinates are least negative. The coarse
+    field is evaluated at the point's reference coordinates in that (curved) element
+    (:func:`gnflow.geometry.reference_coordinates`); where that Newton iteration does not
+    converge (a point in the thin sliver between a curved wall and its chord lies outside
+    the curved element) the straight-triangle coordinates are used, which extrapolates
+    from the adjacent element; a point in no candidate takes the value of the nearest
+    coarse dof. It is only a start for Newton, so these fallbacks cost iterations, not
+    accuracy.
     """
     from scipy.spatial import cKDTree
-    from skfem import Basis, MeshTri
 
-    coarse_mesh = coarse.domain.basis.mesh
-    linear = MeshTri(coarse_mesh.p, coarse_mesh.t)
-    basis = Basis(linear, coarse.domain.basis.elem)
+    basis = coarse.domain.basis
+    mesh = basis.mesh
+    p, t = mesh.p, mesh.t[:3]
     x = domain.basis.doflocs
-    centroids = linear.p[:, linear.t].mean(axis=1)
-    k = min(8, linear.t.shape[1])
+    centroids = p[:, t].mean(axis=1)
+    k = min(CANDIDATES, t.shape[1])
     _, candidates = cKDTree(centroids.T).query(x.T, k=k)
     candidates = candidates.reshape(x.shape[1], k)
     best = np.full(x.shape[1], -np.inf)
     cells = candidates[:, 0].copy()
+    straight = np.zeros((2, x.shape[1]))
     for column in range(k):
         tind = candidates[:, column]
-        ref = basis.mapping.invF(x[:, :, np.newaxis], tind=tind)[:, :, 0]
-        inside = np.minimum(np.minimum(ref[0], ref[1]), 1 - ref[0] - ref[1])
+        lam = _barycentric(p, t, x, tind)
+        inside = np.minimum(np.minimum(lam[0], lam[1]), 1 - lam[0] - lam[1])
         better = inside > best
         best[better], cells[better] = inside[better], tind[better]
-    ref = basis.mapping.invF(x[:, :, np.newaxis], tind=cells)
+        straight[:, better] = lam[:, better]
+    ref, converged = reference_coordinates(mesh, x[:, :, np.newaxis], cells)
+    ref = np.where(converged[np.newaxis], ref, straight[:, :, np.newaxis])[:, :, 0]
     values = np.zeros(x.shape[1])
     for local in range(basis.Nbfun):
-        phi = np.asarray(basis.elem.gbasis(basis.mapping, ref, local, tind=cells)[0])[:, 0]
+        phi, _ = basis.elem.lbasis(ref, local)
         values += phi * coarse.u[basis.element_dofs[local, cells]]
+    lost = best < OUTSIDE
+    if lost.any():
+        _, nearest = cKDTree(basis.doflocs.T).query(x[:, lost].T)
+        values[lost] = coarse.u[nearest]
     return values

@@ -56,8 +56,6 @@ class Solution:
     linear_solver: dict = field(default_factory=dict)
     coarse: "Solution | None" = None   # the grid-sequencing solution this one started from
     _problem: "Problem | None" = field(default=None, repr=False)
-    #: derived fields, computed once by gnflow.post and shared by every output
-    derived: dict = field(default_factory=dict, repr=False)
 
     def problem(self) -> "Problem":
         """The discrete problem this solution solves (for post-processing)."""
@@ -67,6 +65,7 @@ class Solution:
         return self._problem
 
     def summary(self) -> dict:
-        """The dict written to ``summary.json`` (SI units)."""
-        from ..post import summarise  # post builds on the solver, not the other way round
-        return summarise(self)
+        """The dict written to ``summary.json`` (SI units). Transitional: callers should
+        use ``gnflow.solve(case)``, whose :class:`~gnflow.results.Results` holds it."""
+        from ..results import Results  # the one reach-back left; goes with its callers
+        return Results(self).summary()

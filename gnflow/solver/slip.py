@@ -1,0 +1,287 @@
+"""Wall slip: the velocity of the fluid at a wall differs from the wall's by a slip law.
+
+Concentrated suspensions and pastes slip at smooth walls (a thin depleted layer next to
+the wall shears instead of the bulk). A slip law relates the slip velocity
+``u_s = u(wall) - U(wall)`` to the wall shear stress ``tau_w`` that the wall exerts on the
+fluid. Three forms, each per wall:
+
+* **Navier slip length** ``b``: ``|u_s| = b gamma_w``, the wall shear rate extrapolated to
+  zero a distance ``b`` behind the wall (Navier 1823). For a generalized Newtonian fluid
+  ``tau_w = tau(gamma_w) = tau(|u_s| / b)``, the flow curve at the rate ``|u_s|/b``.
+* **Power-law slip** ``|u_s| = beta |tau_w|^p`` (``p = 1``: linear slip), the form used for
+  pastes and filled polymers (Mooney 1931, J. Rheol. 2, 210, introduced the slip velocity
+  as a function of wall stress; the power form is common practice, e.g. Kalyon 2005,
+  J. Rheol. 49 — recalled from memory).
+* either with a **slip yield stress** ``tau_s``: no slip while ``|tau_w| <= tau_s``, then
+  ``|u_s| = beta (|tau_w| - tau_s)^p`` (or ``b gamma_w``) above it.
+
+In the weak form the wall value of ``u`` is no longer prescribed; the traction becomes a
+boundary term ``int_wall a F(u - U) v ds`` with ``F`` the inverse slip law (the stress as a
+function of the slip velocity), a nonlinear Robin condition. ``F`` is monotone, so Newton's
+tangent ``int a F'(u_s) du v ds`` keeps the operator symmetric positive definite. Two
+non-smooth points are regularised, as the bulk yield stress is: the slip yield stress by
+``tau_s (1 - exp(-|u_s| / eps))`` (Papanastasiou's form applied to the wall), and
+``p > 1`` (infinite ``F'`` at zero slip) by a floor on ``|u_s|``; ``eps`` is a small
+fraction of the case's speed scale.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+from skfem import BilinearForm, FacetBasis, LinearForm, asm
+
+from .. import rheology
+from .assembly import Problem
+from .linear import LinearSolver
+
+#: slip speeds are regularised below this fraction of the case's speed scale
+SLIP_SMOOTHING = 1e-6
+
+
+@dataclass(frozen=True)
+class SlipLaw:
+    """One wall's slip law, in SI.
+
+    ``length`` (m) for Navier slip, or ``coefficient`` (m/s per Pa^exponent) with
+    ``exponent``; ``yield_stress`` (Pa, default 0) below which the wall does not slip.
+
+    >>> law = SlipLaw(coefficient=1e-4, exponent=1.0)
+    >>> law.slip_speed(200.0)      # 1e-4 m/(s Pa) * 200 Pa
+    0.02
+    """
+
+    length: float | None = None
+    coefficient: float | None = None
+    exponent: float = 1.0
+    yield_stress: float = 0.0
+
+    def slip_speed(self, stress: float, model: rheology.Model | None = None) -> float:
+        """Slip speed magnitude at a wall stress magnitude (for checks and reports)."""
+        excess = max(abs(stress) - self.yield_stress, 0.0)
+        if excess == 0.0:
+            return 0.0
+        if self.length is not None:
+            from .scales import invert_flow_curve
+            return self.length * invert_flow_curve(model, excess)
+        return self.coefficient * excess ** self.exponent
+
+    def secant(self, slip, model, smoothing):
+        """``F(u_s) / u_s`` (with the smoothed magnitude, so finite at zero slip)."""
+        force, _ = self.stress(slip, model, smoothing)
+        magnitude = np.sqrt(slip * slip + smoothing * smoothing)
+        return np.abs(force) / magnitude
+
+    def stress(self, slip, model, smoothing):
+        """``F(u_s)``: the stress on the fluid (against the slip) and ``dF/du_s``."""
+        magnitude = np.sqrt(slip * slip + smoothing * smoothing)
+        sign = slip / magnitude
+        if self.length is not None:
+            rate = magnitude / self.length
+            value = model.stress(rate)
+            slope = model.stress_derivative(rate) / self.length
+        else:
+            q = 1.0 / self.exponent
+            value = (magnitude / self.coefficient) ** q
+            slope = q * value / magnitude
+        # d|u_s|/du_s = sign, so dF/du_s = (dG/d|u_s|) * sign^2 + G * d(sign)/du_s
+        dsign = smoothing * smoothing / magnitude ** 3
+        force = sign * value
+        derivative = slope * sign * sign + value * dsign
+        if self.yield_stress > 0:
+            decay = np.exp(-magnitude / smoothing)
+            force = force + self.yield_stress * (1 - decay) * sign
+            derivative = derivative + self.yield_stress * (
+                decay / smoothing * sign * sign + (1 - decay) * dsign)
+        return force, derivative
+
+
+@BilinearForm
+def _slip_tangent(du, v, w):
+    return w.coefficient * du * v
+
+
+@LinearForm
+def _slip_force(v, w):
+    return w.coefficient * v
+
+
+class WallSlip:
+    """The slip boundary terms of one domain: force, tangent and diagonal on all dofs.
+
+    ``laws``: wall name -> :class:`SlipLaw`. 1-D walls are points carrying the wall's
+    perimeter weight; 2-D walls are integrated along their facets.
+    """
+
+    def __init__(self, domain, laws: dict[str, SlipLaw], model, speed_scale: float):
+        self.domain = domain
+        self.laws = laws
+        self.model = model
+        self.smoothing = SLIP_SMOOTHING * max(speed_scale, 1e-300)
+        self.dofs = np.unique(np.concatenate([domain.walls[n].dofs for n in laws])) \
+            if laws else np.array([], dtype=np.int64)
+        self._facet_bases = {}
+        if domain.dimension == 2:
+            for name in laws:
+                facets = domain.extra["wall_facets"][name]
+                self._facet_bases[name] = FacetBasis(domain.basis.mesh, domain.basis.elem,
+                                                     facets=facets)
+
+    def with_model(self, model) -> "WallSlip":
+        other = object.__new__(WallSlip)
+        other.__dict__.update(self.__dict__)
+        other.model = model
+        return other
+
+    def _terms(self, u, secant: bool = False):
+        """(force vector, tangent matrix) over all dofs; with ``secant`` the matrix has the
+        secant coefficient ``F(u_s)/u_s`` instead of ``F'(u_s)`` (for Picard steps)."""
+        n = self.domain.basis.N
+        force = np.zeros(n)
+        matrix = sp.csr_matrix((n, n))
+        for name, law in self.laws.items():
+            wall = self.domain.walls[name]
+            if self.domain.dimension == 1:
+                slip = u[wall.dofs] - wall.value
+                value, slope = law.stress(slip, self.model, self.smoothing)
+                if secant:
+                    slope = law.secant(slip, self.model, self.smoothing)
+                force[wall.dofs] += wall.perimeter * value
+                matrix = matrix + sp.csr_matrix(
+                    (wall.perimeter * slope, (wall.dofs, wall.dofs)), shape=(n, n))
+                continue
+            basis = self._facet_bases[name]
+            slip = np.asarray(basis.interpolate(u)) - wall.value
+            value, slope = law.stress(slip, self.model, self.smoothing)
+            if secant:
+                slope = law.secant(slip, self.model, self.smoothing)
+            force += asm(_slip_force, basis, coefficient=value)
+            matrix = matrix + asm(_slip_tangent, basis, coefficient=slope).tocsr()
+        return force, matrix
+
+    def force(self, u) -> np.ndarray:
+        """``int_wall a F(u - U) v ds`` for every dof."""
+        return self._terms(u)[0]
+
+    def tangent(self, u) -> sp.csr_matrix:
+        """``int_wall a F'(u - U) du v ds`` over all dofs."""
+        return self._terms(u)[1]
+
+    def secant(self, u) -> sp.csr_matrix:
+        """``int_wall a (F(u_s)/u_s) du v ds`` over all dofs: the frozen slip operator."""
+        return self._terms(u, secant=True)[1]
+
+    def wall_stress(self, u) -> dict[str, float]:
+        """Mean shear stress each slipping wall exerts on the fluid, signed along +z
+        like :func:`gnflow.post.wall_stresses` (the force the fluid puts on the wall)."""
+        out = {}
+        for name, law in self.laws.items():
+            wall = self.domain.walls[name]
+            if self.domain.dimension == 1:
+                value, _ = law.stress(u[wall.dofs] - wall.value, self.model, self.smoothing)
+                out[name] = float(np.sum(value))
+            else:
+                basis = self._facet_bases[name]
+                value, _ = law.stress(np.asarray(basis.interpolate(u)) - wall.value,
+                                      self.model, self.smoothing)
+                out[name] = float(np.sum(value * basis.dx) / np.sum(basis.dx))
+        return out
+
+    def slip_speed(self, u) -> dict[str, float]:
+        """Mean slip speed along each slipping wall (m/s, signed along +z)."""
+        out = {}
+        for name in self.laws:
+            wall = self.domain.walls[name]
+            if self.domain.dimension == 1:
+                out[name] = float(np.mean(u[wall.dofs]) - wall.value)
+            else:
+                basis = self._facet_bases[name]
+                slip = np.asarray(basis.interpolate(u)) - wall.value
+                out[name] = float(np.sum(slip * basis.dx) / np.sum(basis.dx))
+        return out
+
+
+def speed_scale(case, domain, model) -> float:
+    """A speed typical of the flow, for the slip regularisation (m/s)."""
+    from .scales import characteristic_rate
+    return characteristic_rate(case, domain, model) * domain.length_scale
+
+
+class SlipProblem(Problem):
+    """The discrete problem with slip on some walls: their dofs are unknowns, and the
+    slip law's boundary term joins the residual and the tangent.
+
+    Picard steps (and the frozen-viscosity start) use the slip law's secant
+    ``F(u_s) / u_s`` at the state of the last frozen coefficient, so every frozen
+    operator keeps a Robin term on slipping walls and stays non-singular even when every
+    wall slips.
+    """
+
+    def __init__(self, domain, model, slip: WallSlip):
+        super().__init__(domain, model)
+        self.slip = slip
+        n = domain.basis.N
+        self.fixed = np.setdiff1d(domain.wall_dofs, slip.dofs)
+        self.free = np.setdiff1d(np.arange(n), self.fixed)
+        self.linear = LinearSolver("direct", self.free.size)
+        self._frozen_state = None
+        self._wall_speeds = np.zeros(n)
+        for name in slip.laws:
+            wall = domain.walls[name]
+            self._wall_speeds[wall.dofs] = wall.value
+
+    def boundary_values(self) -> np.ndarray:
+        u = super().boundary_values()
+        u[self.slip.dofs] = 0.0       # unknowns now; the slip term carries the wall speed
+        u[self.fixed] = super().boundary_values()[self.fixed]
+        return u
+
+    def _wall(self) -> WallSlip:
+        """The slip terms with the problem's current model (continuation changes it)."""
+        if self.slip.model is not self.model:
+            self.slip = self.slip.with_model(self.model)
+        return self.slip
+
+    def reaction(self, u, pressure_gradient) -> np.ndarray:
+        """The force balance without the slip term: at a wall, the force the wall exerts."""
+        return super().residual(u, pressure_gradient)
+
+    def residual(self, u, pressure_gradient) -> np.ndarray:
+        return super().residual(u, pressure_gradient) + self._wall().force(u)
+
+    def relative_residual(self, u, pressure_gradient) -> float:
+        gradient, coefficient, _ = self._coefficients(u, False)
+        internal = self.plan.force(coefficient * gradient) + self._wall().force(u)
+        diagonal = self.plan.diagonal(coefficient) + self._wall().tangent(u).diagonal()
+        weight = 1.0 / np.sqrt(np.maximum(diagonal, 1e-300))
+        residual = (internal + pressure_gradient * self.load)[self.free] * weight[self.free]
+        scale = max(np.linalg.norm(internal * weight),
+                    np.linalg.norm(pressure_gradient * self.load * weight), 1e-300)
+        return float(np.linalg.norm(residual) / scale)
+
+    def tangent(self, u) -> sp.csr_matrix:
+        free = self.free
+        return super().tangent(u) + self._wall().tangent(u)[free][:, free]
+
+    def _secant(self) -> sp.csr_matrix:
+        u = self._frozen_state if self._frozen_state is not None else self.boundary_values()
+        return self._wall().secant(u)
+
+    def frozen_coefficient(self, u) -> np.ndarray:
+        self._frozen_state = u
+        return super().frozen_coefficient(u)
+
+    def frozen(self, coefficient) -> sp.csr_matrix:
+        free = self.free
+        return super().frozen(coefficient) + self._secant()[free][:, free]
+
+    def frozen_action(self, coefficient, v) -> np.ndarray:
+        secant = self._secant()
+        return super().frozen_action(coefficient, v) + secant @ (v - self._wall_speeds)
+
+    def sibling(self, model) -> "SlipProblem":
+        other = super().sibling(model)
+        other._frozen_state = None
+        return other

@@ -1,0 +1,250 @@
+"""Exact (unregularised) yield-stress flow: the conic programs of gnflow.solver.exact.
+
+Each check value names its source. The closed forms come from gnflow.analytic, an
+implementation independent of the finite element path.
+"""
+
+import math
+
+import numpy as np
+import pytest
+
+from gnflow import analytic, rheology
+from gnflow.case import Case
+from gnflow.errors import CaseError
+from gnflow.geometry import build_domain
+from gnflow.solver.exact import (augmented_lagrangian_bingham, conic_section,
+                                 flow_stop_pressure_gradient, solve_exact)
+
+#: square duct of unit side, dp/dz = -1, plastic viscosity 1: the yield stress at which it
+#: stops, tau_c = G L / (2 + sqrt(pi)) (Mosolov & Miasnikov 1965, J. Appl. Math. Mech. 29)
+SQUARE_STOP = 1 / (2 + math.sqrt(math.pi))
+BINGHAM = {"model": "bingham", "yield_stress": 1.0, "plastic_viscosity": 1.0}
+
+
+def make_case(shape, geometry, drive, cells=40, degree=2, fluid=None):
+    return Case.from_dict({"fluid": fluid or BINGHAM, "geometry": {"shape": shape, **geometry},
+                           "drive": drive, "mesh": {"cells": cells, "degree": degree}})
+
+
+def square(ratio, cells, drive=None):
+    fluid = {"model": "bingham", "yield_stress": ratio * SQUARE_STOP, "plastic_viscosity": 1.0}
+    return make_case("rectangle", {"width": 1.0, "height": 1.0},
+                     drive or {"pressure_gradient": -1.0}, cells, 2, fluid)
+
+
+def flow_rate(solution):
+    return solution.problem().flow_rate(solution.u)
+
+
+def plug_intervals(solution):
+    """1-D: the unyielded points' coordinates, as (first, last) of each run of points."""
+    report = solution.regularisation
+    x = report["point_coordinates"][0].ravel()
+    order = np.argsort(x)
+    x, plug = x[order], report["unyielded"].ravel()[order]
+    runs, start = [], None
+    for i, inside in enumerate(plug):
+        if inside and start is None:
+            start = i
+        if start is not None and (not inside or i == x.size - 1):
+            end = i if inside else i - 1
+            runs.append((x[start], x[end]))
+            start = None
+    return runs
+
+
+def largest_spacing(solution):
+    x = np.sort(solution.regularisation["point_coordinates"][0].ravel())
+    return float(np.max(np.diff(x)))
+
+
+# ------------------------------------------------------------------ the stopping limit
+
+@pytest.mark.parametrize("shape, geometry, closed_form", [
+    ("slit", {"gap": 2.0}, 2 * 1.0 / 2.0),     # 2 tau_y / h: wall stress |G| h / 2 = tau_y
+    ("pipe", {"radius": 0.5}, 2 * 1.0 / 0.5),  # 2 tau_y / R: wall stress |G| R / 2 = tau_y
+])
+def test_limit_load_of_slit_and_pipe_converges_from_above(shape, geometry, closed_form):
+    values = []
+    for cells in (25, 50):
+        domain = build_domain(make_case(shape, geometry, {"pressure_gradient": -1.0}, cells))
+        values.append(flow_stop_pressure_gradient(domain, 1.0))
+    # the discrete minimiser is the best piecewise polynomial to an indicator function:
+    # above the limit load, and first order in the cell size
+    assert closed_form < values[1] < values[0] < closed_form * (1 + 4 / 25)
+    assert abs(values[0] - closed_form) / abs(values[1] - closed_form) == pytest.approx(2, rel=0.1)
+
+
+def test_limit_load_of_square_duct_is_mosolov_miasnikov():
+    values = [flow_stop_pressure_gradient(build_domain(square(0.5, cells)), 1.0)
+              for cells in (16, 32)]
+    exact = 2 + math.sqrt(math.pi)   # G_c L / tau_y, Mosolov & Miasnikov (1965)
+    assert exact < values[1] < values[0]
+    # first-order convergence (see above): the Richardson extrapolation of two meshes
+    assert 2 * values[1] - values[0] == pytest.approx(exact, rel=5e-4)
+
+
+def test_limit_load_of_concentric_annulus_matches_the_closed_form_flow():
+    inner, outer = 0.3, 1.0
+    bingham = rheology.Bingham(1.0, 1.0)
+    # the two-yield-surface solution (gnflow.analytic.annulus_flow) flows for |G| above the
+    # stopping gradient: find it by bisection on the sign of its flow rate
+    low, high = 1.0, 10.0
+    for _ in range(60):
+        middle = 0.5 * (low + high)
+        flowing = analytic.annulus_flow(bingham, inner, outer, -middle).flow_rate > 0
+        low, high = (low, middle) if flowing else (middle, high)
+    values = [flow_stop_pressure_gradient(build_domain(make_case(
+        "annulus", {"inner_radius": inner, "outer_radius": outer}, {"pressure_gradient": -1.0},
+        cells)), 1.0) for cells in (50, 100)]
+    assert high < values[1] < values[0]
+    assert 2 * values[1] - values[0] == pytest.approx(high, rel=1e-3)
+
+
+def test_square_duct_does_not_flow_at_the_stopping_yield_stress_and_flows_just_below():
+    stopped = solve_exact(square(1.0, 24))
+    assert stopped.converged
+    assert not stopped.regularisation["flows"]
+    assert stopped.regularisation["unyielded_fraction"] == 1.0
+    assert stopped.regularisation["stopping_ratio"] == pytest.approx(1.0, rel=1e-12)
+    newtonian_scale = 0.035144 * 1.0   # Q of the Newtonian square duct, mu = 1 (series)
+    assert abs(flow_rate(stopped)) < 1e-7 * newtonian_scale
+    assert any("does not yield" in w for w in stopped.warnings)
+    moving = solve_exact(square(0.97, 24))
+    assert moving.converged and moving.regularisation["flows"]
+    assert flow_rate(moving) > 1e-5 * newtonian_scale
+    assert 0 < moving.regularisation["unyielded_fraction"] < 1
+
+
+# ------------------------------------------------------------ square duct flow rates
+
+@pytest.mark.parametrize("ratio", [0.5, 0.9, 0.95])
+def test_square_duct_flow_rate_agrees_with_augmented_lagrangian(ratio):
+    """Two methods on the same discrete functional: the interior-point conic program and
+    Fortin & Glowinski's ALG2 (independent code path: pointwise shrinkage, no cones)."""
+    case = square(ratio, 8)
+    domain = build_domain(case)
+    conic = solve_exact(case, domain=domain)
+    other = augmented_lagrangian_bingham(case, conic_section(domain), tolerance=1e-7,
+                                         max_iterations=6000)
+    q_conic, q_other = flow_rate(conic), float(conic_section(domain).load @ other.u)
+    assert conic.converged
+    assert q_conic == pytest.approx(q_other, rel=2e-4 if ratio < 0.9 else 2e-3)
+
+
+@pytest.mark.parametrize("ratio", [0.5, 0.9, 0.95])
+def test_square_duct_flow_rate_converges_under_refinement(ratio):
+    rates = [flow_rate(solve_exact(square(ratio, cells))) for cells in (8, 16, 32)]
+    first, second = abs(rates[1] - rates[0]), abs(rates[2] - rates[1])
+    assert second < first / 2                       # better than first order
+    assert second < 2e-3 * rates[2]                 # the 32-cell value to 0.2 %
+
+
+# ------------------------------------------------------------------ 1-D closed forms
+
+def test_pipe_matches_buckingham_reiner_with_its_plug():
+    G = -5.3          # plug radius 2 tau_y / |G| = 0.377 R, not at a node
+    solution = solve_exact(make_case("pipe", {"radius": 1.0}, {"pressure_gradient": G}, 40))
+    reference = analytic.pipe_bingham(1.0, 1.0, 1.0, G)     # Buckingham (1921) / Reiner
+    assert solution.converged
+    assert flow_rate(solution) == pytest.approx(reference.flow_rate, rel=2e-6)
+    (start, end), = plug_intervals(solution)
+    assert start < largest_spacing(solution)
+    assert end == pytest.approx(reference.plugs[0][1], abs=largest_spacing(solution))
+    assert solution.regularisation["stopping_ratio"] == pytest.approx(5.3 / 2.0)
+
+
+def test_slit_matches_the_exact_plug():
+    G = -1.37
+    solution = solve_exact(make_case("slit", {"gap": 2.0}, {"pressure_gradient": G}, 40))
+    reference = analytic.slit_bingham(2.0, 1.0, 1.0, G)    # plane Buckingham-Reiner
+    assert flow_rate(solution) == pytest.approx(reference.flow_rate, rel=2e-6)
+    (start, end), = plug_intervals(solution)
+    h = largest_spacing(solution)
+    assert start == pytest.approx(reference.plugs[0][0], abs=h)
+    assert end == pytest.approx(reference.plugs[0][1], abs=h)
+
+
+def test_concentric_annulus_matches_the_two_yield_surface_solution():
+    geometry = {"inner_radius": 0.3, "outer_radius": 1.0}
+    solution = solve_exact(make_case("annulus", geometry, {"pressure_gradient": -9.0}, 40))
+    reference = analytic.annulus_flow(rheology.Bingham(1.0, 1.0), 0.3, 1.0, -9.0,
+                                      regularised=False)
+    assert flow_rate(solution) == pytest.approx(reference.flow_rate, rel=1e-4)
+    (start, end), = plug_intervals(solution)
+    (exact_start, exact_end), = reference.plugs
+    h = largest_spacing(solution)
+    assert start == pytest.approx(exact_start, abs=h) and end == pytest.approx(exact_end, abs=h)
+
+
+def test_herschel_bulkley_pipe_matches_the_stress_integral():
+    fluid = {"model": "herschel-bulkley", "yield_stress": 1.0, "consistency": 0.7,
+             "flow_index": 0.5}
+    solution = solve_exact(make_case("pipe", {"radius": 1.0}, {"pressure_gradient": -5.3},
+                                     40, fluid=fluid))
+    reference = analytic.pipe_flow(rheology.HerschelBulkley(1.0, 0.7, 0.5), 1.0, -5.3)
+    assert solution.converged
+    assert flow_rate(solution) == pytest.approx(reference.flow_rate, rel=1e-5)
+    (start, end), = plug_intervals(solution)
+    assert end == pytest.approx(reference.plugs[0][1], abs=largest_spacing(solution))
+
+
+def test_coaxial_bingham_torque_and_yielded_radius():
+    case = make_case("coaxial-cylinders", {"inner_radius": 0.5, "outer_radius": 1.5},
+                     {"inner_angular_speed": 2.0}, 40)
+    solution = solve_exact(case)
+    reference = analytic.coaxial_flow(rheology.Bingham(1.0, 1.0), 0.5, 1.5, 2.0)
+    # the closed form of the Bingham Couette flow with a rigid outer zone (Krieger-Maron
+    # construction in gnflow.analytic)
+    assert solution.regularisation["torque_per_length"] == pytest.approx(
+        reference.torque_per_length, rel=1e-5)
+    (start, end), = plug_intervals(solution)
+    assert start == pytest.approx(reference.plugs[0][0], abs=largest_spacing(solution))
+    # the rigid zone turns with the outer cylinder (at rest)
+    assert np.max(np.abs(solution.u[solution.domain.basis.doflocs[0] > reference.plugs[0][0]
+                                    + largest_spacing(solution)])) < 1e-6
+
+
+# -------------------------------------------------------------- flow rate and walls
+
+def test_flow_rate_drive_recovers_the_buckingham_reiner_gradient():
+    reference = analytic.pipe_bingham(1.0, 1.0, 1.0, -5.3)
+    solution = solve_exact(make_case("pipe", {"radius": 1.0},
+                                     {"flow_rate": reference.flow_rate}, 40))
+    assert solution.pressure_gradient == pytest.approx(-5.3, rel=1e-6)
+    assert flow_rate(solution) == pytest.approx(reference.flow_rate, rel=1e-9)
+
+
+def test_flow_rate_drive_in_two_dimensions_inverts_the_pressure_drive():
+    pressure_driven = solve_exact(square(0.7, 8))
+    target = flow_rate(pressure_driven)
+    rate_driven = solve_exact(square(0.7, 8, {"flow_rate": target}))
+    assert rate_driven.pressure_gradient == pytest.approx(-1.0, rel=1e-6)
+    assert flow_rate(rate_driven) == pytest.approx(target, rel=1e-9)
+
+
+def test_slit_with_a_moving_wall_matches_the_exact_solution():
+    solution = solve_exact(make_case("slit", {"gap": 1.0},
+                                     {"pressure_gradient": -3.0, "wall_speed": {"top": 0.2}}, 40))
+    reference = analytic.slit_flow(rheology.Bingham(1.0, 1.0), 1.0, -3.0, 0.0, 0.2)
+    assert flow_rate(solution) == pytest.approx(reference.flow_rate, rel=1e-4)
+    (start, end), = plug_intervals(solution)
+    assert start == pytest.approx(reference.plugs[0][0], abs=largest_spacing(solution))
+    assert solution.regularisation["stopping_ratio"] is None   # defined for walls at rest
+
+
+def test_annulus_with_a_moving_inner_wall_and_flow_rate_drive():
+    bingham = rheology.Bingham(1.0, 1.0)
+    reference = analytic.annulus_flow(bingham, 0.3, 1.0, -6.0, inner_speed=0.1)
+    solution = solve_exact(make_case("annulus", {"inner_radius": 0.3, "outer_radius": 1.0},
+                                     {"flow_rate": reference.flow_rate,
+                                      "wall_speed": {"inner": 0.1}}, 40))
+    assert solution.pressure_gradient == pytest.approx(-6.0, rel=1e-4)
+
+
+def test_exact_method_needs_a_yield_stress_model():
+    case = make_case("pipe", {"radius": 1.0}, {"pressure_gradient": -1.0},
+                     fluid={"model": "newtonian", "viscosity": 1.0})
+    with pytest.raises(CaseError, match="fluid.regularisation.method"):
+        solve_exact(case)

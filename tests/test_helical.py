@@ -1,0 +1,156 @@
+"""Helical flow (axial flow with rotation) in concentric and eccentric annuli.
+
+Sources beside each check: Bird, Stewart & Lightfoot, *Transport Phenomena* (annulus and
+Couette closed forms, through ``gnflow.analytic``); Piercy, Hooper & Winny 1933 (eccentric
+annulus series); Sommerfeld 1904 (narrow-gap journal torque, recalled from memory); and
+the semi-analytic helical solution ``analytic.helical_annulus_flow`` derived here.
+"""
+
+import dataclasses
+import math
+
+import numpy as np
+import pytest
+
+from gnflow import analytic
+from gnflow.case import Case
+from gnflow.solver.coupled import HelicalSolution, solve_helical
+
+RI, RO = 0.05, 0.1
+
+FLUIDS = {
+    "power-law": {"model": "power-law", "consistency": 0.8, "flow_index": 0.5},
+    "thickening": {"model": "power-law", "consistency": 0.8, "flow_index": 1.5},
+    "carreau": {"model": "carreau", "zero_shear_viscosity": 2.0, "time_constant": 0.5,
+                "flow_index": 0.4, "infinite_shear_viscosity": 0.001},
+}
+
+
+def annulus_case(fluid, drive, eccentricity=0.0, cells=None):
+    mapping = {"fluid": fluid, "drive": drive,
+               "geometry": {"shape": "annulus", "inner_radius": RI, "outer_radius": RO,
+                            "eccentricity": eccentricity}}
+    if cells:
+        mapping["mesh"] = {"cells": cells}
+    return Case.from_dict(mapping)
+
+
+def test_newtonian_concentric_decouples_into_the_closed_forms():
+    mu = 0.05
+    case = annulus_case({"model": "newtonian", "viscosity": mu},
+                        {"pressure_gradient": -1000.0, "inner_angular_speed": 10.0,
+                         "wall_speed": {"inner": 0.2}})
+    solution = solve_helical(case)
+    assert isinstance(solution, HelicalSolution) and solution.converged
+    r = solution.domain.basis.doflocs[0]
+    axial = analytic.annulus_newtonian(RI, RO, mu, -1000.0, inner_speed=0.2)   # BSL 2.4
+    couette = analytic.coaxial_newtonian(RI, RO, mu, 10.0)                     # BSL 3.6
+    assert solution.flow_rate == pytest.approx(axial.flow_rate, rel=1e-9)
+    assert np.max(np.abs(solution.u - axial.velocity(r))) < 1e-9 * np.max(np.abs(solution.u))
+    assert solution.torque_per_length["inner"] == pytest.approx(couette.torque_per_length,
+                                                                rel=1e-9)
+    assert solution.torque_per_length["outer"] == pytest.approx(-couette.torque_per_length,
+                                                                rel=1e-9)
+    assert np.max(np.abs(solution.angular_speed - couette.angular_speed(r))) < 1e-8
+    # wall stress the fluid exerts in +z: BSL closed form
+    for wall in ("inner", "outer"):
+        assert solution.axial_wall_shear_stress[wall] == pytest.approx(
+            axial.wall_shear_stress[wall], rel=1e-8)
+
+
+@pytest.mark.parametrize("name", sorted(FLUIDS))
+@pytest.mark.parametrize("drive", [
+    {"pressure_gradient": -2000.0, "inner_angular_speed": 20.0},
+    {"flow_rate": 0.004, "inner_angular_speed": 20.0, "outer_angular_speed": -3.0,
+     "wall_speed": {"inner": 0.1}},
+], ids=["gradient", "flow-rate"])
+def test_concentric_matches_the_semi_analytic_helical_solution(name, drive):
+    case = annulus_case(FLUIDS[name], drive)
+    solution = solve_helical(case)
+    assert solution.converged
+    reference = analytic.helical_annulus_flow(   # derived in gnflow.analytic
+        solution.model, RI, RO, drive.get("pressure_gradient"), drive["inner_angular_speed"],
+        drive.get("outer_angular_speed", 0.0), drive.get("wall_speed", {}).get("inner", 0.0),
+        0.0, drive.get("flow_rate"))
+    r = solution.domain.basis.doflocs[0]
+    assert solution.flow_rate == pytest.approx(reference.flow_rate, rel=1e-6)
+    assert solution.pressure_gradient == pytest.approx(reference.pressure_gradient, rel=1e-6)
+    assert solution.torque_per_length["inner"] == pytest.approx(reference.torque_per_length,
+                                                                rel=1e-6)
+    assert np.max(np.abs(solution.u - reference.velocity(r))) < 1e-6 * np.max(np.abs(solution.u))
+    spread = np.ptp(solution.angular_speed)
+    assert np.max(np.abs(solution.angular_speed - reference.angular_speed(r))) < 1e-6 * spread
+    # energy: pressure work + wall drag + rotation = dissipation (identity of the weak form)
+    power = solution.power_per_length
+    assert power["axial"] + power["rotational"] == pytest.approx(power["dissipation"], rel=1e-8)
+
+
+def test_rotation_lowers_the_pressure_gradient_of_a_shear_thinning_fluid():
+    """Property: at a fixed flow rate |dp/dz| falls as the inner cylinder turns faster."""
+    base = annulus_case(FLUIDS["power-law"], {"flow_rate": 0.004, "inner_angular_speed": 1.0})
+    gradients = []
+    for speed in (1.0, 5.0, 20.0, 60.0):
+        case = dataclasses.replace(base, drive=dataclasses.replace(base.drive,
+                                                                   inner_angular_speed=speed))
+        solution = solve_helical(case)
+        assert solution.converged
+        gradients.append(abs(solution.pressure_gradient))
+    assert all(later < earlier for earlier, later in zip(gradients, gradients[1:]))
+
+
+def test_bingham_concentric_converges_and_reports_plugs():
+    case = annulus_case({"model": "bingham", "yield_stress": 5.0, "plastic_viscosity": 0.03},
+                        {"pressure_gradient": -2000.0, "inner_angular_speed": 20.0})
+    solution = solve_helical(case)
+    assert solution.converged
+    assert 0 < solution.unyielded_fraction < 1 and solution.plug_intervals
+    reference = analytic.helical_annulus_flow(solution.model, RI, RO, -2000.0, 20.0)
+    assert solution.flow_rate == pytest.approx(reference.flow_rate, rel=1e-5)
+
+
+def test_newtonian_eccentric_axial_flow_is_the_bipolar_series_whatever_the_rotation():
+    mu, e = 0.05, 0.5
+    expected = analytic.eccentric_annulus_newtonian_flow_rate(   # Piercy, Hooper & Winny 1933
+        RI, RO, e * (RO - RI), mu, -1000.0)
+    rates = []
+    for speed in (0.0, 10.0):
+        case = annulus_case({"model": "newtonian", "viscosity": mu},
+                            {"pressure_gradient": -1000.0, "inner_angular_speed": speed,
+                             "outer_angular_speed": 0.0 if speed else 1.0}, e, cells=6)
+        solution = solve_helical(case)
+        assert solution.converged
+        rates.append(solution.flow_rate)
+    assert rates[0] == pytest.approx(expected, rel=2e-5)
+    assert rates[1] == pytest.approx(rates[0], rel=1e-12)
+
+
+def test_eccentric_torque_tends_to_the_narrow_gap_journal_result():
+    """Sommerfeld's full-film journal torque (Sommerfeld 1904, recalled from memory),
+    ``M = 4 pi mu Omega R^3 / c (1 + 2 e^2) / ((2 + e^2) sqrt(1 - e^2))``, is the
+    narrow-gap limit of the creeping flow: the relative difference falls as ``c / R``."""
+    e, gaps, differences = 0.5, (0.04, 0.02), []
+    for c in gaps:
+        case = Case.from_dict({
+            "fluid": {"model": "newtonian", "viscosity": 1.0},
+            "geometry": {"shape": "annulus", "inner_radius": 1.0, "outer_radius": 1.0 + c,
+                         "eccentricity": e},
+            "drive": {"pressure_gradient": -1.0, "inner_angular_speed": 1.0},
+            "mesh": {"cells": 4}})
+        solution = solve_helical(case)
+        radius = 1.0 + c / 2
+        journal = 4 * math.pi * radius ** 3 / c * (1 + 2 * e * e) / ((2 + e * e) * math.sqrt(1 - e * e))
+        differences.append(solution.torque_per_length["inner"] / journal - 1)
+        # the torques on the two walls balance only with the net force's moment; the
+        # inner one is what the journal formula gives
+    assert abs(differences[1]) < 0.6 * gaps[1]
+    assert differences[0] / differences[1] == pytest.approx(2.0, rel=0.1)
+
+
+def test_eccentricity_to_zero_approaches_the_concentric_solver():
+    drive = {"flow_rate": 0.004, "inner_angular_speed": 20.0}
+    concentric = solve_helical(annulus_case(FLUIDS["power-law"], drive))
+    eccentric = solve_helical(annulus_case(FLUIDS["power-law"], drive, 1e-3, cells=6))
+    assert eccentric.converged
+    assert eccentric.pressure_gradient == pytest.approx(concentric.pressure_gradient, rel=2e-3)
+    assert eccentric.torque_per_length["inner"] == pytest.approx(
+        concentric.torque_per_length["inner"], rel=2e-3)
