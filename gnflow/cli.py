@@ -73,6 +73,12 @@ def _build_parser() -> argparse.ArgumentParser:
     check = sub.add_parser("check", help="validate a case file and print it in SI units")
     check.add_argument("case", help="case file (TOML)")
     check.add_argument("--quiet", action="store_true", help="print only errors")
+    section = sub.add_parser("section", help=(
+        "draw a section given in the case file (ellipse, triangle, polygon, "
+        "circular-sector, rounded rectangle) with its named walls and mesh, before any solve"))
+    section.add_argument("case", help="case file (TOML) with a drawn section")
+    section.add_argument("--out", help="PNG file (default results/<case stem>-section.png)")
+    section.add_argument("--quiet", action="store_true", help="print only errors")
     demo = sub.add_parser("demo", help="run a bundled example case")
     demo.add_argument("--out", help="results folder (default results/demo/)")
     demo.add_argument("--list", action="store_true", help="list the bundled examples")
@@ -352,6 +358,45 @@ def _check(case_path) -> int:
     return 0
 
 
+def _section(case_path, out, quiet: bool) -> int:
+    """Draw a drawn section and its mesh to a PNG (written to a temporary name first)."""
+    import os
+    import tempfile
+
+    from . import drawing
+    from .case import load_case
+
+    case = load_case(case_path)
+    if getattr(case.geometry, "drawing", None) is None:
+        raise CaseError("geometry.shape", case.geometry.shape, message=(
+            f"geometry.shape: {case.geometry.shape!r} is not a drawn section; 'gnflow section' "
+            f"draws {', '.join(drawing.SHAPES)} and rectangles with a corner_radius"))
+    mesh, walls = drawing.mesh(case.geometry.drawing, case.mesh.cells, case.mesh.degree,
+                               case.mesh.wall_refinement)
+    target = Path(out) if out else Path("results") / f"{Path(case_path).stem}-section.png"
+    target.parent.mkdir(parents=True, exist_ok=True)
+    handle, temporary = tempfile.mkstemp(suffix=".png", dir=target.parent)
+    os.close(handle)
+    try:
+        drawing.draw_png(case.geometry.drawing, mesh, walls, temporary)
+        os.chmod(temporary, 0o666 & ~_umask())
+        os.replace(temporary, target)
+    finally:
+        if os.path.exists(temporary):
+            os.remove(temporary)
+    if not quiet:
+        print(f"{case_path}: {case.geometry.shape} with walls {', '.join(sorted(walls))}; "
+              f"{mesh.t.shape[1]} triangles -> {target}")
+    return 0
+
+
+def _umask() -> int:
+    import os
+    current = os.umask(0)
+    os.umask(current)
+    return current
+
+
 def _demo(args) -> int:
     examples = _example_names()
     if args.list:
@@ -386,6 +431,8 @@ def main(argv: list[str] | None = None) -> int:
             return _check(args.case)
         if args.command == "demo":
             return _demo(args)
+        if args.command == "section":
+            return _section(args.case, args.out, args.quiet)
         if args.command == "verify":
             from .verify import run_verify_command
             return run_verify_command(args.case, args.levels, args.ratio, args.out,

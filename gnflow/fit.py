@@ -433,7 +433,8 @@ def fit_models(data: FlowCurveData, models=None) -> list[ModelFit]:
 def _too_few_points(data: FlowCurveData, model: str, with_temperature: bool):
     p = parameter_count(model, with_temperature)
     shift = " with the Arrhenius shift" if with_temperature else ""
-    raise CaseError(Path(data.source).name, f"{data.points} data point" + ("s" if data.points != 1 else ""),
+    points = f"{data.points} data point" + ("s" if data.points != 1 else "")
+    raise CaseError(Path(data.source).name, points,
                     f"at least {p + 1} points to fit {model} "
                     f"({p} parameter{'s' if p != 1 else ''}{shift}, and one more for the error)")
 
@@ -817,7 +818,7 @@ def fluid_definition(fit: ModelFit, data: FlowCurveData, ranked: int = 1) -> str
 
 
 def write_fit_outputs(fits: list[ModelFit], data: FlowCurveData, out_dir, warnings=(),
-                      caution: str = "") -> Path:
+                      caution: str = "", slip=None) -> Path:
     """Write fit.json, fluid.toml and fit.png into ``out_dir``, each file atomically.
 
     The files are written into a temporary directory beside ``out_dir`` and then moved
@@ -832,10 +833,14 @@ def write_fit_outputs(fits: list[ModelFit], data: FlowCurveData, out_dir, warnin
         raise CaseError("--out", str(out_dir),
                         f"a directory that can be written ({error.strerror})") from None
     try:
-        (staging / "fit.json").write_text(
-            json.dumps(fit_report(fits, data, warnings, caution), indent=2,
-                       allow_nan=False) + "\n")
-        (staging / "fluid.toml").write_text(fluid_definition(fits[0], data))
+        report = fit_report(fits, data, warnings, caution)
+        definition = fluid_definition(fits[0], data)
+        if slip is not None:   # a Mooney analysis: the slip law beside the bulk fluid
+            from .mooney import slip_table
+            report["slip"] = _slip_report(slip)
+            definition += "\n" + slip_table(slip.slip)
+        (staging / "fit.json").write_text(json.dumps(report, indent=2, allow_nan=False) + "\n")
+        (staging / "fluid.toml").write_text(definition)
         _plot(fits, data, staging / "fit.png")
         for name in ("fit.json", "fluid.toml", "fit.png"):
             os.replace(staging / name, out / name)
@@ -934,6 +939,45 @@ def format_table(fits: list[ModelFit], data: FlowCurveData) -> str:
     return "\n".join(lines)
 
 
+def _slip_report(analysis) -> dict:
+    """The Mooney analysis for fit.json: the slip law and the points it came from (SI)."""
+    fit = analysis.slip
+    return {"law": "u_s = coefficient * (tau_w - yield_stress)^exponent",
+            "coefficient": fit.coefficient, "coefficient_unit": f"m/s/Pa^{fit.exponent:.6g}",
+            "exponent": fit.exponent, "yield_stress": fit.yield_stress,
+            "rms_relative_error": fit.rms_relative_error,
+            "points": [{"wall_shear_stress": float(t), "slip_speed": p.slip_speed,
+                        "bulk_wall_shear_rate": float(g), "line_misfit": p.residual}
+                       for t, p, g in zip(analysis.stresses, analysis.points,
+                                          analysis.bulk_rates)],
+            "method": "Mooney (1931) lines at each wall stress; bulk rates corrected by "
+                      "Weissenberg-Rabinowitsch"}
+
+
+def _is_slip_file(data_path: str) -> bool:
+    from .mooney import is_slip_data
+    try:
+        with open(data_path, encoding="utf-8-sig") as handle:
+            for line in handle:
+                if line.strip() and not line.lstrip().startswith("#"):
+                    return is_slip_data(line)
+    except (OSError, UnicodeDecodeError):
+        return False   # read_flow_curve gives the error message
+    return False
+
+
+def _read_data(data_path: str):
+    """The flow curve to fit, and the Mooney analysis when the file holds several sizes."""
+    if not _is_slip_file(data_path):
+        return read_flow_curve(data_path), None
+    from .mooney import analyse, read_slip_data
+    analysis = analyse(read_slip_data(data_path))
+    data = FlowCurveData(str(data_path), analysis.bulk_rates, analysis.stresses, None,
+                         "shear_stress", {"shear_rate": "1/s (bulk, slip removed)",
+                                          "shear_stress": "Pa"})
+    return data, analysis
+
+
 def run_fit_command(data_path: str, models: list[str] | None, out_dir: str | None,
                     quiet: bool = False) -> int:
     """``gnflow fit DATA.csv [--models ...] [--out DIR]``: fit, print the table, write files.
@@ -946,7 +990,7 @@ def run_fit_command(data_path: str, models: list[str] | None, out_dir: str | Non
     """
     from .post import CAUTION  # the one place the caution text lives
 
-    data = read_flow_curve(data_path)
+    data, slip = _read_data(data_path)
     names = None
     if models:
         names = [name.strip() for entry in models for name in entry.split(",") if name.strip()]
@@ -954,12 +998,22 @@ def run_fit_command(data_path: str, models: list[str] | None, out_dir: str | Non
     warnings = (data_warnings(data) + [w for f in fits for w in fit_warnings(f, data)]
                 + left_out_warnings(fits, data, names))
     out = Path(out_dir) if out_dir else Path("results") / f"{Path(data_path).stem}-fit"
-    write_fit_outputs(fits, data, out, warnings, CAUTION)
+    if slip is not None:
+        warnings.append("slip laws are specific to the material and the wall's material and "
+                        "finish: measure them on the walls of the equipment")
+    write_fit_outputs(fits, data, out, warnings, CAUTION, slip)
     if quiet:
         for warning in warnings:
             print(f"WARNING: {warning}", file=sys.stderr)
         return 0
     print(format_table(fits, data))
+    if slip is not None:
+        law = slip.slip
+        print(f"wall slip (Mooney analysis of {len(slip.points)} wall stresses): u_s = "
+              f"{law.coefficient:.4g} m/s/Pa^{law.exponent:.4g} * (tau_w - "
+              f"{law.yield_stress:.4g} Pa)^{law.exponent:.4g}, rms relative error "
+              f"{100 * law.rms_relative_error:.2g} %; the bulk fits above use the slip-free "
+              "wall shear rates")
     for warning in warnings:
         print(f"  WARNING: {warning}")
     print(f"\nwrote {out / 'fit.json'}, {out / 'fluid.toml'} (fluid definition: "

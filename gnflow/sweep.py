@@ -408,7 +408,7 @@ def _failed_chunk(chunk, message: str) -> list:
 
 
 def _run_local(task, chunks, workers, progress):
-    from . import solver  # noqa: F401  imported before the fork, so no worker imports it again
+    from .results import Results  # noqa: F401  imported before the fork: workers inherit it
 
     if workers == 1:
         for chunk in chunks:

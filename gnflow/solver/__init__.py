@@ -59,12 +59,12 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
     >>> round(solve(case).summary()["flow_rate"], 9)   # -G h^3 / (12 mu) per unit width
     1.0
     """
+    if _is_helical(case):   # before the exact method, which has no rotation
+        from .coupled import solve_helical
+        return solve_helical(case, domain=domain, cells=cells, progress=progress)
     if getattr(case.fluid, "regularisation", None) == "none":
         from .exact import solve_exact
         return solve_exact(case, domain=domain, cells=cells, progress=progress)
-    if _is_helical(case):
-        from .coupled import solve_helical
-        return solve_helical(case, domain=domain, cells=cells, progress=progress)
     if getattr(case, "heat", None) is not None:
         from .heat import solve_heated
         return solve_heated(case, case.heat, domain=domain, cells=cells, progress=progress)

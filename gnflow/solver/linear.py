@@ -11,13 +11,14 @@ import scipy.sparse.linalg as spla
 
 
 #: Free unknowns up to which "auto" starts with a sparse direct solve. 1-D systems are
-#: banded and factor in linear time. For 2-D P2 sections ``bench/linear_crossover.py``
-#: measured SuperLU ahead of AMG-preconditioned CG at every size run (square duct, 4k and
-#: 16k unknowns: Bingham 3.6x and 1.4x, power law 1.8x and 7.3x faster), the sharply
-#: regularised plug costing CG over a thousand iterations per solve. The ratio falls with
-#: size for Bingham, so the limit sits above the largest size measured, not at 150k.
+#: banded and factor in linear time. For 2-D P2 sections SuperLU's fill-in grows faster
+#: than linearly: on square ducts (2026-12-02, 2 loaded cores, Newton without the
+#: error estimates) AMG-preconditioned CG (the loop in ``_cg``) was ahead of SuperLU at
+#: 20k unknowns (Herschel-Bulkley 6.9 s against 7.8 s, power law 5.2 s against 7.1 s)
+#: and at 40k (11.0 s against 24.6 s, 12.8 s against 25.9 s). A sharply regularised plug
+#: that makes CG climb past CG_CLIMB iterations moves to the direct solver by itself.
 DIRECT_LIMIT = 60_000
-DIRECT_LIMIT_2D = 40_000
+DIRECT_LIMIT_2D = 15_000
 #: "auto" on AMG switches to the direct solver when one CG solve needs more iterations than
 #: this (the preconditioner no longer captures the operator) and the system is below
 #: DIRECT_HARD_LIMIT unknowns (SuperLU's fill-in on 2-D P2 stays below ~2 GiB there).
