@@ -316,11 +316,20 @@ def _si_unit(section: str, key: str, case) -> str:
         dimension = dims.get(key)
         return si_unit(dimension) if dimension and dimension != "dimensionless" else ""
     if section == "geometry":
-        return "m" if key not in ("shape", "eccentricity", "file", "length_unit") else ""
+        if key == "area":
+            return "m^2"
+        if key in ("shape", "eccentricity", "file", "length_unit", "walls", "angle"):
+            return ""
+        drawn = case.geometry.drawing is not None and key not in ("area", "inscribed_diameter")
+        # a drawn section's keys are shown as the case gave them (with their own units)
+        return "" if drawn else "m"
+    if section == "heat":
+        return {"conductivity": "W/(m*K)", "wall_temperature": "K",
+                "temperature_coefficient": "1/K", "reference_temperature": "K"}.get(key, "")
     if section == "drive":
         if key == "flow_rate":
             return "m^2/s" if case.geometry.shape == "slit" else "m^3/s"
-        return {"pressure_gradient": "Pa/m", "wall_speed": "m/s",
+        return {"pressure_gradient": "Pa/m", "wall_speed": "m/s", "slip": "",
                 "inner_angular_speed": "rad/s", "outer_angular_speed": "rad/s"}.get(key, "")
     return ""
 

@@ -589,8 +589,9 @@ def _section_domain(case: Case, mesh, wall_facets: dict[str, np.ndarray], cells=
     spec = case.mesh
     speeds = case.drive.wall_speed
     drawn = getattr(case.geometry, "drawing", None) is not None
-    source = (f"the drawn {case.geometry.shape} has no wall" if drawn else
-              f"the mesh {case.geometry.file.name} has no boundary group")
+    file = case.geometry.file
+    source = (f"the drawn {case.geometry.shape} has no wall" if drawn or file is None else
+              f"the mesh {file.name} has no boundary group")
     for name in speeds:
         if name not in wall_facets:
             raise CaseError(f"drive.wall_speed.{name}", message=(
@@ -611,7 +612,7 @@ def _section_domain(case: Case, mesh, wall_facets: dict[str, np.ndarray], cells=
     return Domain(case.geometry.shape if drawn else "mesh", "axial", basis, walls, "x, y",
                   False, area, 4 * area / perimeter, float(min(extent)), degree,
                   int(cells or spec.cells) if drawn else mesh.t.shape[1],
-                  {"file": None if drawn else str(case.geometry.file), "wall_facets": wall_facets,
+                  {"file": None if drawn or file is None else str(file), "wall_facets": wall_facets,
                    "singular_points": singular_points(mesh, wall_facets, speeds)})
 
 

@@ -55,6 +55,9 @@ DIMENSIONS = {
     "power_per_length": "W/m",
     "molar_energy": "J/mol",
     "temperature": "K",
+    "thermal_conductivity": "W/(m*K)",
+    "inverse_temperature": "1/K",
+    "slip_coefficient": "m/(s*Pa)",
     "dimensionless": "",
 }
 
@@ -132,7 +135,8 @@ def _example(dimension: str) -> str:
         "flow_rate": "2 L/s", "flow_rate_per_width": "0.001 m^2/s",
         "consistency": "2.5 Pa*s^0.45", "molar_energy": "40 kJ/mol",
         "temperature": "40 degC", "torque_per_length": "1 N*m/m",
-        "power_per_length": "1 W/m",
+        "power_per_length": "1 W/m", "thermal_conductivity": "0.2 W/(m*K)",
+        "inverse_temperature": "0.02 1/K", "slip_coefficient": "0.2 mm/(s*Pa)",
     }.get(dimension, "1")
 
 

@@ -14,6 +14,7 @@ from gnflow.case import Case
 from gnflow.solver import solve
 from gnflow.solver.continuation import RegularisationSchedule
 from gnflow.solver.linear import LinearSolver
+from gnflow.solver.newton import FORCING_MAX, forcing_term
 
 
 def _summary(solution) -> dict:
@@ -113,6 +114,24 @@ def test_cg_fallback_solves_a_regular_system():
     solver.prepare(a)
     x = solver.solve(np.ones(n), 1e-12)
     assert np.allclose(a @ x, 1.0, atol=1e-9)
+
+
+def test_cg_stops_on_an_operator_that_is_not_positive_definite():
+    n = 200
+    a = sp.diags([-np.ones(n - 1), 2 * np.ones(n), -np.ones(n - 1)], [-1, 0, 1]).tocsr()
+    solver = LinearSolver("amg", n)
+    solver.prepare(-a)
+    with pytest.raises(np.linalg.LinAlgError, match="not positive definite"):
+        solver.solve(np.ones(n), 1e-12)
+
+
+def test_forcing_term_follows_the_residual_within_its_bounds():
+    assert forcing_term(1e-3, 1e-3, 1e-10, first=True) == FORCING_MAX
+    # Eisenstat-Walker choice 2: 0.9 (r_k / r_k-1)^2
+    assert forcing_term(1e-4, 1e-2, 1e-10, first=False) == pytest.approx(0.9e-4)
+    assert forcing_term(1e-5, 1.1e-5, 1e-10, first=False) == FORCING_MAX   # slow progress
+    # near the tolerance: no tighter than taking the residual to 1e-3 tol
+    assert forcing_term(2e-10, 1e-5, 1e-10, first=False) == pytest.approx(5e-4)
 
 
 def test_banded_factor_of_a_1d_system_matches_sparse_lu_and_declines_an_indefinite_one():

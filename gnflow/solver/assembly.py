@@ -17,7 +17,7 @@ from skfem.helpers import dot, grad
 
 from .. import rheology
 from ..geometry import Domain
-from .linear import LinearSolver
+from .linear import LinearSolver, inner
 
 
 #: Shear rates below this fraction of the flow's rate scale are evaluated at the floor:
@@ -69,7 +69,8 @@ def _norm(x: np.ndarray) -> float:
     largest = float(np.max(np.abs(x), initial=0.0))
     if not (largest > 0.0 and math.isfinite(largest)):
         return largest
-    return largest * float(np.linalg.norm(x / largest))
+    scaled = x / largest
+    return largest * math.sqrt(inner(scaled, scaled))
 
 
 class AssemblyPlan:
@@ -91,7 +92,9 @@ class AssemblyPlan:
         self.dim, self.nq, self.size = dim, nq, basis.N
         # (elements, basis functions, dim * points): a batched matrix per element
         self.grads = np.ascontiguousarray(grads.transpose(2, 0, 1, 3).reshape(ne, nb, dim * nq))
-        self.grads_squared = self.grads * self.grads
+        # |grad phi|^2 at each point, for the diagonal: summed over the dimensions here, it
+        # takes half the memory of the squared gradients
+        self.gradient_norms = np.einsum("bdeq,bdeq->ebq", grads, grads)
         self.dx = basis.dx
         self.dofs = basis.element_dofs.T.copy()                     # (elements, nb)
         index = -np.ones(basis.N, dtype=np.int64)
@@ -101,7 +104,9 @@ class AssemblyPlan:
         cols = np.broadcast_to(local[:, None, :], (ne, nb, nb))
         self.keep = (rows >= 0) & (cols >= 0)
         keys = rows[self.keep] * free.size + cols[self.keep]
-        unique, self.position = np.unique(keys, return_inverse=True)
+        unique, position = np.unique(keys, return_inverse=True)
+        # int32 halves the largest index array of the plan (36 entries per P2 triangle)
+        self.position = position.astype(np.int32 if unique.size < 2 ** 31 else np.int64)
         self.indices = (unique % free.size).astype(np.int32)
         counts = np.bincount(unique // free.size, minlength=free.size)
         self.indptr = np.concatenate([[0], np.cumsum(counts)]).astype(np.int32)
@@ -122,8 +127,7 @@ class AssemblyPlan:
 
     def diagonal(self, coefficient) -> np.ndarray:
         """``int coefficient |grad v|^2`` for every dof."""
-        weight = np.tile(coefficient * self.dx, (1, self.dim))[:, :, None]
-        return self._scatter(np.matmul(self.grads_squared, weight)[:, :, 0])
+        return self._scatter(np.einsum("ebq,eq->eb", self.gradient_norms, coefficient * self.dx))
 
     def matrix(self, coefficient, tangent_coefficient=None, gradient=None) -> sp.csr_matrix:
         """The operator on the free dofs: ``int c grad du . grad v (+ t (g . grad du)(g . grad v))``."""
@@ -249,7 +253,7 @@ class Problem:
         return self.plan.force(coefficient * self.plan.gradient(v))
 
     def flow_rate(self, u) -> float:
-        return float(self.load @ u)
+        return inner(self.load, u)
 
     def sibling(self, model: rheology.Model) -> "Problem":
         """The same discrete problem with another model (sharing the assembly plan)."""

@@ -384,8 +384,8 @@ def solve_heated(case, heat: HeatSpec, domain: Domain | None = None, cells: int 
             "insulated the heat generated has nowhere to go and no steady state exists"))
     mean_wall_T = float(np.mean(list(heat.wall_temperature.values())))
     a0 = float(heat.shift.shift(np.array(mean_wall_T))) if heat.shift else 1.0
-    isothermal = replace(case, fluid=replace(case.fluid,
-                                             model=at_temperature(heat.reference_model, a0)))
+    isothermal = replace(case, heat=None, fluid=replace(
+        case.fluid, model=at_temperature(heat.reference_model, a0)))
     first = isothermal_solve(isothermal, domain=domain)
     # the model as the isothermal solve regularised it, back at the law's reference
     heat = replace(heat, reference_model=at_temperature(first.model, 1.0 / a0))

@@ -38,7 +38,7 @@ from .assembly import Problem
 from .linear import LinearSolver
 
 #: slip speeds are regularised below this fraction of the case's speed scale
-SLIP_SMOOTHING = 1e-6
+SLIP_SMOOTHING = 1e-8
 
 
 @dataclass(frozen=True)
@@ -68,16 +68,8 @@ class SlipLaw:
             return self.length * invert_flow_curve(model, excess)
         return self.coefficient * excess ** self.exponent
 
-    def secant(self, slip, model, smoothing):
-        """``F(u_s) / u_s`` (with the smoothed magnitude, so finite at zero slip)."""
-        force, _ = self.stress(slip, model, smoothing)
-        magnitude = np.sqrt(slip * slip + smoothing * smoothing)
-        return np.abs(force) / magnitude
-
-    def stress(self, slip, model, smoothing):
-        """``F(u_s)``: the stress on the fluid (against the slip) and ``dF/du_s``."""
-        magnitude = np.sqrt(slip * slip + smoothing * smoothing)
-        sign = slip / magnitude
+    def _magnitude_law(self, magnitude, model, smoothing):
+        """``G(m)`` and ``dG/dm``: the stress magnitude at the slip magnitude ``m``."""
         if self.length is not None:
             rate = magnitude / self.length
             value = model.stress(rate)
@@ -86,16 +78,28 @@ class SlipLaw:
             q = 1.0 / self.exponent
             value = (magnitude / self.coefficient) ** q
             slope = q * value / magnitude
-        # d|u_s|/du_s = sign, so dF/du_s = (dG/d|u_s|) * sign^2 + G * d(sign)/du_s
-        dsign = smoothing * smoothing / magnitude ** 3
-        force = sign * value
-        derivative = slope * sign * sign + value * dsign
         if self.yield_stress > 0:
             decay = np.exp(-magnitude / smoothing)
-            force = force + self.yield_stress * (1 - decay) * sign
-            derivative = derivative + self.yield_stress * (
-                decay / smoothing * sign * sign + (1 - decay) * dsign)
-        return force, derivative
+            value = value + self.yield_stress * (1 - decay)
+            slope = slope + self.yield_stress * decay / smoothing
+        return value, slope
+
+    def secant(self, slip, model, smoothing):
+        """``F(u_s) / u_s``: with ``F = (u_s / m) G(m)`` this is ``G(m) / m`` exactly, and
+        its limit at zero slip is ``G(eps) / eps``, finite and the stiffest value (a wall
+        held by a slip yield stress, or by ``p > 1``, sticks)."""
+        magnitude = np.sqrt(slip * slip + smoothing * smoothing)
+        value, _ = self._magnitude_law(magnitude, model, smoothing)
+        return value / magnitude
+
+    def stress(self, slip, model, smoothing):
+        """``F(u_s) = (u_s / m) G(m)``, ``m = sqrt(u_s^2 + eps^2)``: the stress on the fluid
+        (against the slip), and ``dF/du_s``."""
+        magnitude = np.sqrt(slip * slip + smoothing * smoothing)
+        sign = slip / magnitude
+        value, slope = self._magnitude_law(magnitude, model, smoothing)
+        # dm/du_s = sign and d(sign)/du_s = eps^2 / m^3
+        return sign * value, slope * sign * sign + value * smoothing * smoothing / magnitude ** 3
 
 
 @BilinearForm
