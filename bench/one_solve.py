@@ -1,4 +1,4 @@
-"""Benchmark: one 1-D solve in-process after import (target: <= 20 ms), per shape and model.
+"""Benchmark: one 1-D solve in-process after import (target: <= 10 ms, issue 16), per shape and model.
 
 Prints a table: shape, model, Newton iterations, median wall time of repeated solves
 (each a full `gnflow.solve`, from case to converged Solution, no output files), and the

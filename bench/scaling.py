@@ -21,7 +21,7 @@ from types import SimpleNamespace
 import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
-from sections import SHORT, measure  # noqa: E402
+from sections import SHORT, measure
 
 
 def fitted_exponent(dofs, values) -> float:

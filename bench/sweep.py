@@ -1,4 +1,4 @@
-"""Benchmark: a 1000-case 1-D sweep with 1 and 2 worker processes (target: <= 30 s on 2 cores).
+"""Benchmark: a 1000-case 1-D sweep with 1 and 2 worker processes (target: <= 2 s on 2 cores, issue 16).
 
 The case is a shear-thinning (power-law, n = 0.5) fluid in a pipe, driven by a pressure
 gradient varied over 1000 values; every case is a full build, solve and summary, no

@@ -123,25 +123,10 @@ def _end_dof(basis: Basis, at_start: bool) -> np.ndarray:
     return np.array([np.argmin(x) if at_start else np.argmax(x)])
 
 
-# 1-D sections without mesh.cells in the case: P2 on 200 cells leaves a flow-rate error
-# of 1.2e-8 (power law n = 0.2) and 2.4e-8 (n = 1.5: the velocity is only C^1.67 at its
-# maximum, where the stress vanishes, and the error falls as h^2.7 there); 400 cells
-# give 1.1e-9 and 2.9e-9 (measured against analytic.annulus_flow), 801 unknowns.
-ONE_D_DEFAULT_CELLS = 400
-
-
-def _effective_cells(case: Case) -> int:
-    """``mesh.cells`` as given, or the 1-D default :data:`ONE_D_DEFAULT_CELLS`."""
-    given = isinstance(case.raw.get("mesh"), dict) and "cells" in case.raw["mesh"]
-    if case.geometry.is_one_dimensional and not given and case.raw:
-        return max(case.mesh.cells, ONE_D_DEFAULT_CELLS)
-    return case.mesh.cells
-
-
 def build_domain(case: Case, cells: int | None = None) -> Domain:
     """The :class:`Domain` of a case (``cells`` overrides ``case.mesh.cells``)."""
     g, mesh = case.geometry, case.mesh
-    cells = cells or _effective_cells(case)
+    cells = cells or mesh.cells
     speeds = case.drive.wall_speed
     if g.shape == "slit":
         basis = _line_basis(0.0, g.gap, cells, mesh.degree, mesh.wall_refinement, "both")

@@ -33,6 +33,10 @@ from skfem import BilinearForm, FacetBasis, LinearForm, asm
 from .laminar import (APPROXIMATE_OFF_PIPE, bingham_plastic_reynolds, hedstrom_number,
                       laminar_limit, laminar_warning)
 from .solver import Solution, invert_flow_curve
+from .solver.coupled import HelicalSolution
+from .solver.heat import HeatedSolution
+from .temperature import at_temperature
+from .yielded import p2_sub_triangles, plug_edges_1d, unyielded_fraction_2d
 
 #: Critical Taylor number of the narrow-gap Taylor-Couette flow with the inner cylinder
 #: turning (Taylor 1923, Phil. Trans. R. Soc. A 223; 1708 is the classical narrow-gap
@@ -108,23 +112,92 @@ def project(basis, values_at_points) -> np.ndarray:
 
 def fields(solution: Solution) -> dict[str, np.ndarray]:
     """Point fields at the dofs: velocity (axial) or angular speed, shear rate,
-    apparent viscosity, shear stress magnitude; plus the coordinate ``x``."""
-    basis = solution.domain.basis
-    problem = solution.problem()
+    apparent viscosity, shear stress magnitude; plus the coordinate ``x``.
+
+    * The shear rate is the L2 projection of the computed one; helical flow takes the
+      solver's own (projected) rate and viscosity of the whole motion, axial and
+      azimuthal; heated flow the local viscosity ``eta(gamma, T)`` at the temperature
+      field (``temperature``, K).
+    * The shear stress of a 1-D section is the equilibrated one (:func:`stress_profile_1d`):
+      the momentum balance integrated from a wall with that wall's reaction stress, exact
+      for the discrete solution's own wall stress; in 2-D it is viscosity times rate.
+    * Helical flow adds ``angular_speed`` (rad/s), ``azimuthal_velocity`` (m/s) and, in 2-D,
+      ``in_plane_velocity`` ((2, N), m/s); ``velocity`` stays the axial speed.
+    """
+    basis, domain = solution.domain.basis, solution.domain
     x = basis.doflocs
-    gradient = np.array([project(basis, g) for g in basis.interpolate(solution.u).grad])
-    rate = np.sqrt(np.sum(gradient ** 2, axis=0)) * solution.domain.rate_factor(x)
-    rate = np.maximum(rate, problem.rate_floor)
-    viscosity = solution.model.viscosity(np.maximum(rate, 1e-300))
-    out = {"x": x, "shear_rate": rate, "viscosity": viscosity, "shear_stress": viscosity * rate}
+    if isinstance(solution, HelicalSolution):
+        rate = np.maximum(solution.shear_rate, solution.rate_floor)
+        viscosity = solution.viscosity
+    else:
+        gradient = np.array([project(basis, g) for g in basis.interpolate(solution.u).grad])
+        rate = np.sqrt(np.sum(gradient ** 2, axis=0)) * domain.rate_factor(x)
+        rate = np.maximum(rate, solution.rate_floor)
+        viscosity = _viscosity(solution, np.maximum(rate, 1e-300))
+    stress = stress_profile_1d(solution, x[0]) if domain.dimension == 1 else viscosity * rate
+    out = {"x": x, "shear_rate": rate, "viscosity": viscosity, "shear_stress": stress}
     if solution.model.is_yield_stress:
         out["unyielded"] = (out["shear_stress"] < solution.model.yield_stress).astype(float)
-    if solution.domain.kind == "axial":
+    if domain.kind == "axial":
         out["velocity"] = solution.u
     else:
         out["angular_speed"] = solution.u
         out["velocity"] = solution.u * x[0]  # azimuthal speed r * omega
+    if isinstance(solution, HelicalSolution):
+        out["angular_speed"] = solution.angular_speed
+        out["azimuthal_velocity"] = solution.azimuthal_velocity
+        if solution.in_plane_velocity is not None:
+            out["in_plane_velocity"] = solution.in_plane_velocity
+    if isinstance(solution, HeatedSolution):
+        out["temperature"] = solution.temperature
     return out
+
+
+def _viscosity(solution: Solution, rate, temperature=None) -> np.ndarray:
+    """The apparent viscosity at shear rates ``rate``: the local ``eta(gamma, T)`` of a
+    heated flow (``temperature`` the temperature at the same points, by default the
+    field at the dofs), else the model's."""
+    if isinstance(solution, HeatedSolution):
+        return solution.local_viscosity(rate, solution.temperature if temperature is None
+                                        else temperature)
+    return solution.model.viscosity(rate)
+
+
+def stress_profile_1d(solution: Solution, x: np.ndarray) -> np.ndarray:
+    """Magnitude of the shear stress across a 1-D section at coordinates ``x`` (Pa), from
+    the momentum balance and the walls' reaction stresses (statics, exact for the
+    discrete solution's wall stresses).
+
+    * Axial flow: ``(A sigma)' = G A`` with ``sigma = eta dw/dx`` and ``A`` the area weight
+      (1 across a slit, ``2 pi r`` otherwise), so ``sigma(x) = (A_0 sigma_0 + G int_x0^x A)
+      / A(x)`` from the first wall ``x0``, whose stress on the fluid gives ``sigma_0``.
+      At the axis of a pipe (``A = 0``) the stress is 0 by symmetry.
+    * Rotational flow: the torque per length ``M`` is the same on every cylinder
+      ``r``, so ``tau(r) = |M| / (2 pi r^2)``.
+    * Helical flow (1-D): both components, ``sqrt(sigma_rz^2 + (M / (2 pi r^2))^2)``.
+    """
+    domain = solution.domain
+    signed = wall_stresses(solution)
+    x = np.asarray(x, dtype=float)
+    if domain.kind == "rotational":
+        inner = domain.walls["inner"]
+        torque = signed["inner"] * inner.perimeter * inner.position
+        return np.abs(torque) / (2 * math.pi * x ** 2)
+    name, wall = next(iter(domain.walls.items()))
+    # the fluid's stress on the wall is eta dw/dn along the normal into the fluid, the
+    # opposite of the domain's outward normal
+    sigma0 = -wall.outward_sign * signed[name]
+    x0 = wall.position
+    G = solution.pressure_gradient
+    if domain.axisymmetric:
+        moment = x0 * sigma0 + G * (x ** 2 - x0 ** 2) / 2
+        sigma = np.divide(moment, x, out=np.zeros_like(x), where=x > 0)
+    else:
+        sigma = sigma0 + G * (x - x0)
+    if isinstance(solution, HelicalSolution):
+        torque = solution.torque_per_length["inner"]
+        return np.hypot(sigma, torque / (2 * math.pi * x ** 2))
+    return np.abs(sigma)
 
 
 def wall_stresses(solution: Solution) -> dict[str, float]:
@@ -136,8 +209,16 @@ def wall_stresses(solution: Solution) -> dict[str, float]:
     own = getattr(solution, "axial_wall_shear_stress", None)
     if own:
         return {name: float(own[name]) for name in solution.domain.walls}
+    if isinstance(solution, HeatedSolution):
+        # the coupled balance's own reaction: the isothermal problem's would take the
+        # viscosity at one temperature everywhere
+        return {name: float(solution.heat["wall_shear_stress"][name])
+                for name in solution.domain.walls}
     problem = solution.problem()
-    reaction = problem.residual(solution.u, solution.pressure_gradient)
+    # with slip the residual vanishes at slipping walls (the slip term balances the
+    # viscous flux there): the reaction leaves that term out
+    balance = getattr(problem, "reaction", problem.residual)
+    reaction = balance(solution.u, solution.pressure_gradient)
     out = {}
     for name, wall in solution.domain.walls.items():
         force = float(np.sum(reaction[wall.dofs]))  # per unit length, on the fluid
@@ -171,11 +252,17 @@ def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
     facets), points ``x``, ``y``, the signed wall shear stress (Pa, on the wall along +z),
     the shear rate (1/s) at the facet quadrature points, their weights, and
     ``near_singular_corner`` (True within :func:`singular_exclusion_radius` of a
-    singular corner)."""
+    singular corner).
+
+    Helical flow: the shear rate is that of the whole motion (the in-plane strain of
+    ``in_plane_velocity`` with the axial one) and sets the viscosity; heated flow: the
+    viscosity is the local one at the wall temperature; wall slip: ``slip_speed`` (m/s,
+    the fluid's speed relative to the wall, along +z; 0 on walls that do not slip)."""
     domain = solution.domain
     mesh = domain.basis.mesh
     corners = singular_points(solution)
     radius = singular_exclusion_radius(solution) if corners else 0.0
+    laws = getattr(solution.case.drive, "slip", None) or {}
     out = {}
     for name in domain.walls:
         facets = _chained(mesh, domain.extra["wall_facets"][name])
@@ -183,9 +270,18 @@ def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
         gradient = facet_basis.interpolate(solution.u).grad
         normal_derivative = np.sum(gradient * facet_basis.normals, axis=0)
         rate = np.abs(normal_derivative)
-        viscosity = solution.model.viscosity(np.sqrt(np.sum(gradient ** 2, axis=0)
-                                                     + solution.rate_floor ** 2))
+        rate_squared = np.sum(gradient ** 2, axis=0)
+        if isinstance(solution, HelicalSolution) and solution.in_plane_velocity is not None:
+            rate_squared = rate_squared + _in_plane_strain_squared(solution, facet_basis, facets)
+            rate = np.sqrt(rate_squared)
+        temperature = (np.asarray(facet_basis.interpolate(solution.temperature))
+                       if isinstance(solution, HeatedSolution) else None)
+        viscosity = _viscosity(solution, np.sqrt(rate_squared + solution.rate_floor ** 2),
+                               temperature)
         stress = -viscosity * normal_derivative
+        slip = np.zeros_like(stress)
+        if name in laws:
+            slip = np.asarray(facet_basis.interpolate(solution.u)) - domain.walls[name].value
         points = np.asarray(facet_basis.global_coordinates())
         lengths = facet_basis.dx.sum(axis=1)
         start = np.concatenate([[0.0], np.cumsum(lengths)[:-1]])
@@ -200,8 +296,22 @@ def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
         out[name] = {"s": s.ravel()[order], "x": x, "y": y,
                      "shear_stress": stress.ravel()[order],
                      "shear_rate": rate.ravel()[order], "weight": facet_basis.dx.ravel()[order],
-                     "near_singular_corner": near}
+                     "near_singular_corner": near, "slip_speed": slip.ravel()[order]}
     return out
+
+
+def _in_plane_strain_squared(solution: HelicalSolution, facet_basis, facets) -> np.ndarray:
+    """``2 (du_x/dx)^2 + 2 (du_y/dy)^2 + (du_x/dy + du_y/dx)^2`` of the in-plane velocity at
+    the quadrature points of ``facet_basis`` (the in-plane share of ``gamma^2``, as in
+    :mod:`gnflow.solver.coupled`)."""
+    velocity = solution.velocity_basis
+    ix, iy = velocity.split_indices()
+    packed = np.zeros(velocity.N)
+    packed[ix], packed[iy] = solution.in_plane_velocity
+    on_wall = FacetBasis(facet_basis.mesh, velocity.elem, facets=facets,
+                         quadrature=(facet_basis.X, facet_basis.W))
+    g = on_wall.interpolate(packed).grad                      # (2, 2, facets, points)
+    return 2 * g[0, 0] ** 2 + 2 * g[1, 1] ** 2 + (g[0, 1] + g[1, 0]) ** 2
 
 
 def _chained(mesh, facets: np.ndarray) -> np.ndarray:
@@ -228,6 +338,29 @@ def _chained(mesh, facets: np.ndarray) -> np.ndarray:
             nxt = [j for j in by_vertex[vertex] if j in unused]
             k = nxt[0] if nxt else None
     return facets[np.array(order, dtype=np.int64)]
+
+
+def wall_rates_1d(solution: Solution, signed: dict[str, float]) -> dict[str, float]:
+    """Shear rate at each wall of a 1-D section (1/s): the model's flow curve inverted at
+    the wall's stress, which is exact for the solution's wall stress (no differentiated
+    field). Helical flow inverts at the stress of the whole motion, axial and azimuthal
+    (``tau_theta = M / (2 pi r_w^2)``, ``M`` the wall's torque per length); heated flow
+    with the fluid at the wall's temperature."""
+    out = {}
+    for name, tau in signed.items():
+        wall = solution.domain.walls[name]
+        model = solution.model
+        if isinstance(solution, HelicalSolution):
+            azimuthal = solution.torque_per_length[name] / (wall.perimeter * wall.position)
+            tau = math.hypot(tau, azimuthal)
+        if isinstance(solution, HeatedSolution) and solution.spec is not None:
+            model = solution.spec.reference_model
+            if solution.spec.shift is not None:
+                wall_temperature = float(np.mean(solution.temperature[wall.dofs]))
+                model = at_temperature(model, float(solution.spec.shift.shift(
+                    np.array(wall_temperature))))
+        out[name] = invert_flow_curve(model, abs(tau)) if tau else 0.0
+    return out
 
 
 def torque_per_length(solution: Solution) -> tuple[float, float]:
@@ -391,8 +524,7 @@ def _wall_summary(solution: Solution, signed: dict, distributions: dict | None,
         "max the largest local value" if domain.kind == "axial" else
         "magnitudes of the azimuthal shear stress on each cylinder; mean perimeter-weighted")}
     if domain.dimension == 1:
-        rates = {n: invert_flow_curve(solution.model, t) if t else 0.0
-                 for n, t in stresses.items()}
+        rates = wall_rates_1d(solution, signed)
         largest_stress, largest_rate = max(stresses.values()), max(rates.values())
     else:
         # the mean per wall is the perimeter-weighted mean of the local rate; maxima come

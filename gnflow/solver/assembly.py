@@ -12,7 +12,7 @@ import math
 
 import numpy as np
 import scipy.sparse as sp
-from skfem import BilinearForm, LinearForm, asm
+from skfem import BilinearForm, LinearForm
 from skfem.helpers import dot, grad
 
 from .. import rheology
@@ -257,7 +257,7 @@ class Problem:
 
     def sibling(self, model: rheology.Model) -> "Problem":
         """The same discrete problem with another model (sharing the assembly plan)."""
-        self.plan   # built here, so that neither copy builds its own
+        _ = self.plan   # built here, so that neither copy builds its own
         other = copy.copy(self)
         other.model = model
         other._memo = None

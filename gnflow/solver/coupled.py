@@ -85,6 +85,8 @@ class HelicalSolution(Solution):
       ``pressure_basis`` (P1), to which ``G z`` adds;
     * ``torque_per_length``: N m/m applied to each wall to turn it, about its own centre
       (``inner + outer = 0`` in the concentric annulus);
+    * ``in_plane_wall_force``: 2-D only, ``(F_x, F_y)`` N/m each wall applies on the fluid
+      in the plane (with the torques, the in-plane balance: their sum vanishes);
     * ``axial_wall_force``: N/m the fluid exerts on each wall in +z, and
       ``axial_wall_shear_stress`` that force over the wall's perimeter (Pa);
     * ``power_per_length``: W/m, ``axial`` (pressure work ``-G Q`` plus axial wall drag),
@@ -104,6 +106,7 @@ class HelicalSolution(Solution):
     torque_per_length: dict = field(default_factory=dict)
     axial_wall_force: dict = field(default_factory=dict)
     axial_wall_shear_stress: dict = field(default_factory=dict)
+    in_plane_wall_force: dict = field(default_factory=dict)
     power_per_length: dict = field(default_factory=dict)
     flow_rate: float = 0.0
     shear_rate: np.ndarray | None = None
@@ -703,6 +706,8 @@ def _derived(solution: HelicalSolution, problem: CoupledProblem, it: Iterate, ve
             lever = np.where(np.isin(dofs, ix), -(velocity.doflocs[1, dofs] - yc),
                              velocity.doflocs[0, dofs] - xc)
             solution.torque_per_length[name] = float(residual[dofs] @ lever)
+            solution.in_plane_wall_force[name] = (float(residual[np.intersect1d(dofs, ix)].sum()),
+                                                  float(residual[np.intersect1d(dofs, iy)].sum()))
     axial_power = -it.gradient * problem.flow_rate(it.x)
     for name, wall in domain.walls.items():
         force = float(residual[axial_offset + wall.dofs].sum())    # what the wall applies on the fluid

@@ -119,6 +119,16 @@ class HeatedSolution(Solution):
 
     temperature: np.ndarray | None = None
     heat: dict = field(default_factory=dict)
+    spec: HeatSpec | None = None    # as solved: its reference model carries the regularisation
+
+    def local_viscosity(self, rate, temperature):
+        """The local apparent viscosity (Pa s) at shear rates ``rate`` (1/s) and
+        temperatures ``temperature`` (K): ``eta(g, T) = a(T) eta_ref(a(T) g)``, the law
+        the coupled balance solves (time-temperature superposition, module docstring)."""
+        rate = np.asarray(rate, dtype=float)
+        shift = self.spec.shift.shift(np.asarray(temperature, dtype=float)) \
+            if self.spec.shift else np.ones_like(rate)
+        return shift * self.spec.reference_model.viscosity(shift * rate)
 
 
 # --------------------------------------------------------------------------- weak forms
@@ -496,7 +506,7 @@ def _solution(case, domain, heat, problem, u, T, G, converged, used, history, sc
     return HeatedSolution(case, domain, model, u, float(G) if domain.kind == "axial" else 0.0,
                           bool(converged), used, float(residual), history, message, seconds,
                           None, warnings, math.sqrt(problem.floor2),
-                          temperature=T, heat=numbers)
+                          temperature=T, heat=numbers, spec=heat)
 
 
 def _dimensionless(case, domain, heat, problem, u, c, wall_T) -> dict:

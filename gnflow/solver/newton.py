@@ -175,6 +175,10 @@ def picard(problem, u, gradient, target_rate, tol, max_iterations, history, star
 
 def initial_state(problem: Problem, case: Case, model: rheology.Model, rate: float):
     """A Newtonian solution with the model's viscosity at the characteristic rate."""
+    if hasattr(problem, "slip_start"):
+        # slipping walls: the no-slip start, then the slip its wall stresses call for
+        return problem.slip_start(initial_state(problem.without_slip(), case, model, rate),
+                                  case.drive.flow_rate)
     reference = rheology.Newtonian(float(model.viscosity(np.array([rate]))[0]))
     newtonian = problem.sibling(reference)
     gradient = case.drive.pressure_gradient or 0.0

@@ -27,6 +27,7 @@ fraction of the case's speed scale.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -34,7 +35,7 @@ import scipy.sparse as sp
 from skfem import BilinearForm, FacetBasis, LinearForm, asm
 
 from .. import rheology
-from .assembly import Problem
+from .assembly import Problem, _norm
 from .linear import LinearSolver
 
 #: slip speeds are regularised below this fraction of the case's speed scale
@@ -177,6 +178,25 @@ class WallSlip:
         """``int_wall a (F(u_s)/u_s) du v ds`` over all dofs: the frozen slip operator."""
         return self._terms(u, secant=True)[1]
 
+    def slip_at_reaction(self, reaction) -> np.ndarray:
+        """Slip speeds (all dofs; zero off the slipping walls) at which each wall's slip
+        law balances the nodal forces ``reaction`` that a fixed wall would exert. The
+        stress at a wall dof is its force over its share of the wall, ``int_wall a v ds``
+        (the slip term adds ``F`` times that share), inverted by the unsmoothed law."""
+        slip = np.zeros(self.domain.basis.N)
+        for name, law in self.laws.items():
+            wall = self.domain.walls[name]
+            if self.domain.dimension == 1:
+                share = np.full(wall.dofs.size, wall.perimeter)
+            else:
+                basis = self._facet_bases[name]
+                ones = np.ones_like(np.asarray(basis.interpolate(np.zeros(basis.N))))
+                share = asm(_slip_force, basis, coefficient=ones)[wall.dofs]
+            stress = -reaction[wall.dofs] / share
+            speed = np.array([law.slip_speed(value, self.model) for value in stress])
+            slip[wall.dofs] = np.sign(stress) * speed
+        return slip
+
     def wall_stress(self, u) -> dict[str, float]:
         """Mean shear stress each slipping wall exerts on the fluid, signed along +z
         like :func:`gnflow.post.wall_stresses` (the force the fluid puts on the wall)."""
@@ -256,14 +276,32 @@ class SlipProblem(Problem):
         return super().residual(u, pressure_gradient) + self._wall().force(u)
 
     def relative_residual(self, u, pressure_gradient) -> float:
+        """Residual on the free dofs over the size of the forces in balance, in the
+        diagonally scaled norm of :meth:`Problem.relative_residual`.
+
+        The viscous force, the slip drag and the pressure load are measured apart: at a
+        slipping wall the first two balance each other (each is the wall's share of the
+        pressure force), so their sum, small there, would understate the forces in balance
+        and lift round-off above the tolerance (measured: 49 times, in a pipe with a
+        slip yield stress, where a fixed wall's reaction carries the scale).
+
+        The weights are those of the viscous operator alone, as for a fixed wall: the
+        slip term's own stiffness is up to ``tau_s / eps`` on a wall held by a slip yield
+        stress, an artefact of the smoothing that would shrink that wall's share of the
+        scale (measured: 170 times) and make the measure depend on ``SLIP_SMOOTHING``.
+        """
         gradient, coefficient, _ = self._coefficients(u, False)
-        internal = self.plan.force(coefficient * gradient) + self._wall().force(u)
-        diagonal = self.plan.diagonal(coefficient) + self._wall().tangent(u).diagonal()
-        weight = 1.0 / np.sqrt(np.maximum(diagonal, 1e-300))
-        residual = (internal + pressure_gradient * self.load)[self.free] * weight[self.free]
-        scale = max(np.linalg.norm(internal * weight),
-                    np.linalg.norm(pressure_gradient * self.load * weight), 1e-300)
-        return float(np.linalg.norm(residual) / scale)
+        viscous = self.plan.force(coefficient * gradient)
+        drag = self._wall().force(u)
+        diagonal = self.plan.diagonal(coefficient)
+        # weights scaled so that the stiffest dof has weight 1, as in the base class
+        weight = np.sqrt(np.max(diagonal[self.free], initial=0.0) / diagonal)
+        residual = (viscous + drag + pressure_gradient * self.load)[self.free] * weight[self.free]
+        scale = max(_norm(viscous * weight), _norm(drag * weight),
+                    _norm(pressure_gradient * self.load * weight))
+        if scale == 0.0:
+            return 0.0 if _norm(residual) == 0.0 else math.inf
+        return float(_norm(residual) / scale)
 
     def tangent(self, u) -> sp.csr_matrix:
         free = self.free
@@ -284,6 +322,36 @@ class SlipProblem(Problem):
     def frozen_action(self, coefficient, v) -> np.ndarray:
         secant = self._secant()
         return super().frozen_action(coefficient, v) + secant @ (v - self._wall_speeds)
+
+    def without_slip(self) -> Problem:
+        """The same domain and model with every wall fixed at its speed."""
+        plain = Problem(self.domain, self.model)
+        plain.rate_floor = self.rate_floor
+        plain.linear = LinearSolver("auto" if self.linear.automatic else self.linear.method,
+                                    plain.free.size, dimension=self.domain.dimension)
+        return plain
+
+    def slip_start(self, start, target):
+        """A start with slip, from the start ``(u, G)`` of :meth:`without_slip`.
+
+        A start with the walls as unknowns from the outset is poor whatever the law: at
+        zero slip the secant ``G(eps)/eps`` holds a wall with ``p > 1`` or a slip yield
+        stress fixed, and leaves one with ``p < 1`` almost free (the pressure gradient of
+        a flow-rate start was then 140 times too large). Instead each slipping wall's
+        stress is read from the no-slip start's reaction (exact for pipes and slits by
+        statics, ``tau_w = -G R / 2``), the slip law gives the slip speed there, and one
+        frozen solve with the slip secant at that slip and the start's viscosity spreads
+        it into the bulk. Pressure-driven pipes and slits start at their solution: the
+        slip flow is the no-slip flow plus the slip speed.
+        """
+        from .newton import picard_step   # newton imports nothing from here; no cycle
+        u, gradient = start
+        shifted = u.copy()
+        shifted[self.slip.dofs] = (self._wall_speeds
+                                   + self._wall().slip_at_reaction(self.reaction(u, gradient)))[self.slip.dofs]
+        coefficient = super().frozen_coefficient(u)
+        self._frozen_state = shifted
+        return picard_step(self, shifted, gradient, target, coefficient)
 
     def sibling(self, model) -> "SlipProblem":
         other = super().sibling(model)
