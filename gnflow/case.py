@@ -694,7 +694,10 @@ def _parse_geometry(table: dict, source: Path | None) -> GeometrySpec:
     if shape == "mesh":
         values.update(_parse_mesh_file(table, source))
     if shape in drawing.SHAPES or (shape == "rectangle" and "corner_radius" in table):
-        values = {"drawing": drawing.parse(shape, table)}
+        try:
+            values = {"drawing": drawing.parse(shape, table)}
+        except (ArithmeticError, ValueError) as err:   # a drawing no float can hold
+            raise CaseError("geometry", shape, f"a drawing of ordinary size ({err})") from None
     return GeometrySpec(shape, **values)
 
 

@@ -232,14 +232,25 @@ def check_wall_speeds(drawing: Drawing, wall_speed: dict, where: str = "drive.wa
                 f"{', '.join(drawing.walls)}"))
 
 
+#: lengths and coordinates of a drawing, as for the built-in shapes (gnflow.case): areas
+#: and moments of larger or smaller sections would leave the float range
+LENGTH_RANGE = (1e-9, 1e5)
+
+
 def _length(value, key: str) -> float:
-    return check_positive(key, quantity(value, "length", key))
+    length = check_positive(key, quantity(value, "length", key))
+    if not LENGTH_RANGE[0] <= length <= LENGTH_RANGE[1]:
+        raise CaseError(key, value, "a length from 1 nm to 100 km")
+    return length
 
 
 def _point(value, key: str) -> tuple[float, float]:
     if not isinstance(value, list) or len(value) != 2:
         raise CaseError(key, value, 'a point [x, y], e.g. ["0 mm", "12 mm"]')
-    return (quantity(value[0], "length", key), quantity(value[1], "length", key))
+    point = (quantity(value[0], "length", key), quantity(value[1], "length", key))
+    if max(abs(point[0]), abs(point[1])) > LENGTH_RANGE[1]:
+        raise CaseError(key, value, "coordinates within 100 km of the origin")
+    return point
 
 
 def _points(table: dict, where: str, low: int, high: int = MAX_VERTICES) -> list:

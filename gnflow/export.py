@@ -90,21 +90,34 @@ def write_wall_csv(path: Path, results: Results) -> None:
 
     ``shear_stress [Pa]`` is signed: the stress the fluid exerts on the wall along +z.
     ``near_singular_corner`` is 1 within the excluded neighbourhood of a singular corner
-    (see :func:`gnflow.post.singular_exclusion_radius`), else 0.
+    (see :func:`gnflow.post.singular_exclusion_radius`), else 0. With wall slip a last
+    column ``slip_speed [m/s]`` gives the fluid's speed relative to the wall along +z
+    (0 on walls without a slip law).
     """
+    slipping = bool(getattr(results.case.drive, "slip", None))
     with path.open("w", newline="", encoding="utf-8") as handle:
         writer = csv.writer(handle)
         writer.writerow(["wall", "s [m]", "x [m]", "y [m]", "shear_stress [Pa]",
-                         "shear_rate [1/s]", "near_singular_corner"])
+                         "shear_rate [1/s]", "near_singular_corner"]
+                        + (["slip_speed [m/s]"] if slipping else []))
         for name, d in results.wall_distributions.items():
-            for *row, near in zip(d["s"], d["x"], d["y"], d["shear_stress"], d["shear_rate"],
-                                  d["near_singular_corner"]):
-                writer.writerow([name] + [f"{v:.10g}" for v in row] + [int(near)])
+            for *row, near, slip in zip(d["s"], d["x"], d["y"], d["shear_stress"],
+                                        d["shear_rate"], d["near_singular_corner"],
+                                        d["slip_speed"]):
+                writer.writerow([name] + [f"{v:.10g}" for v in row] + [int(near)]
+                                + ([f"{slip:.10g}"] if slipping else []))
 
 
 def field_mesh(results: Results):
     """The solution as a meshio mesh with point data for open viewers (1-D sections lie
-    along x)."""
+    along x).
+
+    ``velocity`` is the axial speed, except in helical flow, where it is the 3-component
+    velocity ``(u_x, u_y, w)`` of the motion (2-D: the in-plane velocity and the axial
+    speed; 1-D, along the x axis at y = 0: ``(0, v_theta, w)``, the azimuthal direction
+    there being +y), with ``axial_velocity``, ``angular_speed`` and ``azimuthal_velocity``
+    beside it. Heated flow adds ``temperature`` (K).
+    """
     import meshio
 
     basis = results.domain.basis
@@ -116,7 +129,17 @@ def field_mesh(results: Results):
     cell_type = cells_by_degree[(x.shape[0], results.domain.degree)]
     element_dofs = basis.element_dofs.T
     data = {name: f[name] for name in ("velocity", "shear_rate", "viscosity", "shear_stress",
-                                       "angular_speed", "unyielded") if name in f}
+                                       "angular_speed", "unyielded", "azimuthal_velocity",
+                                       "temperature") if name in f}
+    if "azimuthal_velocity" in f:
+        data["axial_velocity"] = f["velocity"]
+        vector = np.zeros((x.shape[1], 3))
+        if "in_plane_velocity" in f:
+            vector[:, :2] = f["in_plane_velocity"].T
+        else:
+            vector[:, 1] = f["azimuthal_velocity"]
+        vector[:, 2] = f["velocity"]
+        data["velocity"] = vector
     return meshio.Mesh(points, [(cell_type, element_dofs)], point_data=data)
 
 

@@ -84,11 +84,6 @@ def cautions_for(case) -> list[str]:
     return out + [CAUTION]
 
 
-@LinearForm
-def _unyielded_area(v, w):
-    return w.indicator * w.area_weight * v
-
-
 @BilinearForm
 def _mass(u, v, w):
     return u * v
@@ -366,27 +361,77 @@ def wall_rates_1d(solution: Solution, signed: dict[str, float]) -> dict[str, flo
 def torque_per_length(solution: Solution) -> tuple[float, float]:
     """Torque per length on the inner cylinder (N m/m) and the relative imbalance
     against the outer cylinder's, which must vanish in steady flow."""
+    walls = solution.domain.walls
+    if isinstance(solution, HeatedSolution):
+        # the coupled balance's reaction gives stress magnitudes; the torque turning the
+        # inner cylinder has the sign of its rotation relative to the outer one
+        drive = solution.case.drive
+        sense = math.copysign(1.0, drive.inner_angular_speed - drive.outer_angular_speed)
+        inner, outer = (wall_stresses(solution)[n] * walls[n].perimeter * walls[n].position
+                        for n in ("inner", "outer"))
+        return sense * inner, abs(inner - outer) / max(abs(inner), 1e-300)
     problem = solution.problem()
     reaction = problem.internal_force(solution.u)
-    inner = float(np.sum(reaction[solution.domain.walls["inner"].dofs]))
-    outer = float(np.sum(reaction[solution.domain.walls["outer"].dofs]))
+    inner = float(np.sum(reaction[walls["inner"].dofs]))
+    outer = float(np.sum(reaction[walls["outer"].dofs]))
     return inner, abs(inner + outer) / max(abs(inner), 1e-300)
 
 
-def unyielded_fraction(solution: Solution) -> float:
-    """Area fraction of the section where the stress is below the yield stress."""
-    model = solution.model
-    problem = solution.problem()
-    rate = np.maximum(problem.shear_rate(solution.u), problem.rate_floor)
-    indicator = (model.stress(rate) < model.yield_stress).astype(float)
-    area = asm(_unyielded_area, solution.domain.basis, indicator=indicator,
-               area_weight=problem.area_weight).sum()
-    total = problem.load.sum()
-    return float(area / total)
+def unyielded_zones(solution: Solution, point_fields: dict) -> dict:
+    """Where the stress is below the yield stress, located by interpolation
+    (:mod:`gnflow.yielded`), with the uncertainty of each figure.
+
+    * 1-D: ``plugs`` (the intervals of :func:`gnflow.yielded.plug_edges_1d` on the
+      equilibrated stress profile), ``plug_edge_uncertainty`` (m), and the area fraction
+      of those intervals, ``int_plugs A dx / int A dx`` (``A`` the area weight);
+    * 2-D: the area fraction of :func:`gnflow.yielded.unyielded_fraction_2d` on the P2
+      sub-triangles (P1: the triangles) with the nodal stress;
+    * ``unyielded_fraction_uncertainty``: the interpolated figure's difference from the
+      node-resolution one (a cautious bound, see :mod:`gnflow.yielded`).
+
+    The exact method (``method = "none"``) keeps its own 2-D fraction, from the
+    complementarity of its optimum (the nodal stress of a non-regularised model is not
+    defined in a plug).
+    """
+    domain, tau_y = solution.domain, solution.model.yield_stress
+    stress = point_fields["shear_stress"]
+    if domain.dimension == 1:
+        x = point_fields["x"][0]
+        edges = plug_edges_1d(x, stress, tau_y)
+        node = plug_intervals(x, stress, tau_y)
+        lower, upper = float(np.min(x)), float(np.max(x))
+        fraction = _interval_area(domain, edges.intervals) / _interval_area(domain, [[lower, upper]])
+        node_fraction = _interval_area(domain, node) / _interval_area(domain, [[lower, upper]])
+        return {"plugs": edges.intervals, "plug_edge_uncertainty": edges.uncertainty,
+                "unyielded_fraction": fraction,
+                "unyielded_fraction_uncertainty": abs(fraction - node_fraction)}
+    report = solution.regularisation or {}
+    if report.get("method") == "none" and "unyielded_fraction" in report:
+        return {"unyielded_fraction": report["unyielded_fraction"],
+                "unyielded_fraction_uncertainty": None}
+    basis = domain.basis
+    if basis.element_dofs.shape[0] == 6:
+        points, triangles = p2_sub_triangles(basis)
+    else:
+        points, triangles = np.asarray(basis.doflocs), basis.element_dofs[:3]
+    centroids = points[:, triangles].mean(axis=1)
+    result = unyielded_fraction_2d(points, triangles, stress - tau_y,
+                                   weight=domain.area_weight(centroids))
+    return {"unyielded_fraction": result.fraction,
+            "unyielded_fraction_uncertainty": result.uncertainty}
+
+
+def _interval_area(domain, intervals) -> float:
+    """``int A dx`` over 1-D intervals: their length across a slit, ``pi (b^2 - a^2)``
+    for an axisymmetric section."""
+    if domain.axisymmetric:
+        return float(sum(math.pi * (b * b - a * a) for a, b in intervals))
+    return float(sum(b - a for a, b in intervals))
 
 
 def plug_intervals(x: np.ndarray, stress: np.ndarray, yield_stress: float) -> list[list[float]]:
-    """Intervals of a 1-D profile where the stress is below the yield stress."""
+    """Intervals of a 1-D profile where the stress is below the yield stress, at node
+    resolution (the reference of :func:`unyielded_zones`' uncertainty)."""
     order = np.argsort(x)
     x, below = x[order], stress[order] < yield_stress
     intervals, start = [], None
@@ -464,7 +509,7 @@ def summarise(solution: Solution, point_fields: dict | None,
               distributions: dict | None) -> dict:
     """The summary dict (SI units) written to ``summary.json``.
 
-    ``point_fields`` (1-D yield-stress flows: plug intervals) and ``distributions`` (2-D:
+    ``point_fields`` (yield-stress flows: plug intervals, unyielded fraction) and ``distributions`` (2-D:
     wall maxima and means) are those of :func:`fields` and :func:`wall_distributions`,
     computed once by the caller. A converged solve whose numbers are not all finite, or
     whose force or torque balance fails, is reported ``converged: false`` with the reason.
@@ -492,6 +537,12 @@ def summarise(solution: Solution, point_fields: dict | None,
         _axial_summary(solution, signed, out, warnings, notes)
     else:
         _rotational_summary(solution, out, warnings)
+    if isinstance(solution, HelicalSolution):
+        _helical_summary(solution, out)
+    if isinstance(solution, HeatedSolution):
+        _heat_summary(solution, out)
+    if getattr(case.drive, "slip", None):
+        _slip_summary(solution, out)
     if solution.model.is_yield_stress:
         _yield_summary(solution, point_fields, out, warnings)
     if solution.regularisation:
@@ -590,8 +641,11 @@ def _axial_summary(solution: Solution, signed: dict, out: dict, warnings: list[s
     # steady axial momentum: the pressure force on the section balances the wall drag
     drag = sum(signed[n] * perimeters[n] for n in signed)
     discrete_area = float(problem.load.sum())
-    out["force_balance_error"] = abs(drag + gradient * discrete_area) / max(
-        abs(drag), abs(gradient * discrete_area), 1e-300)
+    # relative to the largest force in balance: in plane Couette flow the wall drags
+    # cancel each other, and their sum is round-off
+    largest = max(max(abs(signed[n]) * perimeters[n] for n in signed),
+                  abs(gradient * discrete_area), 1e-300)
+    out["force_balance_error"] = abs(drag + gradient * discrete_area) / largest
     # work rates per length: the pressure's -G Q and each moving wall's U F (F the
     # force of the wall on the fluid, -signed * perimeter); their sum is dissipated
     pressure_power = -gradient * flow_rate
@@ -689,24 +743,116 @@ def _rotational_summary(solution: Solution, out: dict, warnings: list[str]) -> N
                 "are likely and the purely azimuthal flow computed here does not hold")
 
 
+def _helical_summary(solution: HelicalSolution, out: dict) -> None:
+    """Helical flow: torques, the power split and the Taylor number.
+
+    * ``wall_torque_per_length`` (N m/m): the torque applied to each cylinder to turn it,
+      about its own centre (a dict, where ``torque_per_length`` of coaxial cylinders is one
+      number); ``azimuthal_wall_shear_stress`` (Pa): its magnitude over perimeter
+      times radius, the mean azimuthal stress on that cylinder.
+    * ``torque_imbalance``: the torques about the outer centre must cancel: ``M_i + M_o +
+      c_i x F_i = 0`` with ``c_i`` the inner centre and ``F_i`` the in-plane force of the
+      inner wall on the fluid (concentric: ``M_i + M_o = 0``); relative to the larger torque.
+    * ``power_per_length`` (W/m): ``pressure`` and ``walls`` (axial work, as for axial flow),
+      ``rotation`` (``sum Omega M``), ``dissipated`` (their sum), and ``dissipation_integral``
+      (``int eta gamma^2 dA``); ``power_balance_error`` their relative difference, which the
+      steady energy balance makes vanish (to the solver tolerance).
+    * ``side_force_per_length`` (2-D, N/m): the in-plane force of the fluid on the inner
+      cylinder, ``[F_x, F_y]``.
+    * ``taylor_number`` (the solver's, narrow-gap form) and ``taylor_check``.
+    """
+    case, domain = solution.case, solution.domain
+    torques = dict(solution.torque_per_length)
+    out["wall_torque_per_length"] = torques
+    out["azimuthal_wall_shear_stress"] = {
+        n: abs(m) / (domain.walls[n].perimeter * _wall_radius(case, n)) for n, m in torques.items()}
+    moment = torques["inner"] + torques["outer"]
+    if solution.in_plane_wall_force:
+        fx, fy = solution.in_plane_wall_force["inner"]
+        centre = case.geometry.eccentricity * (case.geometry.outer_radius
+                                               - case.geometry.inner_radius)
+        moment += centre * fy
+        out["side_force_per_length"] = [-fx, -fy]
+    largest = max(abs(torques["inner"]), abs(torques["outer"]))
+    out["torque_imbalance"] = abs(moment) / largest if largest > 0 else 0.0
+    out["inner_angular_speed"] = case.drive.inner_angular_speed
+    out["outer_angular_speed"] = case.drive.outer_angular_speed
+    power = out["power_per_length"]
+    power["rotation"] = solution.power_per_length["rotational"]
+    power["dissipated"] = power["pressure"] + power["walls"] + power["rotation"]
+    power["dissipation_integral"] = solution.power_per_length["dissipation"]
+    out["power_balance_error"] = abs(power["dissipated"] - power["dissipation_integral"]) / max(
+        abs(power["dissipation_integral"]), 1e-300)
+    out["taylor_number"] = solution.taylor_number
+    out["taylor_check"] = ("not made: no [fluid] density given" if solution.taylor_number is None
+                           else "passed" if solution.taylor_number <= CRITICAL_TAYLOR
+                           else "failed")
+    out["helical_assumptions"] = list(solution.assumptions)
+
+
+def _wall_radius(case, name: str) -> float:
+    return case.geometry.inner_radius if name == "inner" else case.geometry.outer_radius
+
+
+#: units of the ``heat`` block of the summary
+HEAT_UNITS = {"max_temperature": "K", "mean_temperature": "K", "mean_wall_temperature": "K",
+              "max_temperature_rise": "K", "mean_temperature_rise": "K",
+              "load_factor_reached": "1", "critical_load_factor": "1",
+              "dissipation_per_length": "W/m (slit: W/m^2)", "nahme_griffith_number": "1",
+              "brinkman_number": "1", "characteristic_speed": "m/s"}
+
+
+def _heat_summary(solution: HeatedSolution, out: dict) -> None:
+    """Viscous heating: the ``heat`` block, the numbers of :mod:`gnflow.solver.heat` with
+    their units (``units``), and the temperature law and walls as solved. The wall
+    stresses of the summary are already the coupled balance's (:func:`wall_stresses`)."""
+    block = {k: v for k, v in solution.heat.items() if k != "wall_shear_stress"}
+    spec = solution.spec
+    if spec is not None:
+        block["conductivity"] = spec.conductivity
+        block["wall_temperature"] = dict(spec.wall_temperature)
+        block["insulated"] = list(spec.insulated)
+        block["temperature_law"] = (None if spec.shift is None else {
+            "law": spec.shift.law, "constant": spec.shift.constant,
+            "unit": "J/mol" if spec.shift.law == "arrhenius" else "1/K",
+            "reference_temperature": spec.shift.reference_temperature})
+    block["units"] = {**HEAT_UNITS, "conductivity": "W/(m K)", "wall_temperature": "K"}
+    out["heat"] = block
+
+
+def _slip_summary(solution: Solution, out: dict) -> None:
+    """Wall slip: per slipping wall, ``slip_speed`` (m/s, the mean speed of the fluid
+    relative to the wall along +z), ``wall_shear_stress`` (Pa, signed along +z: the
+    stress of the fluid on the wall by the slip law; the summary's ``wall_shear_stress``
+    is the reaction's, equal to it to the solver tolerance) and the ``law`` (SI)."""
+    problem = solution.problem()
+    slip = getattr(problem, "slip", None)
+    if slip is None:   # a solver without slip terms (e.g. helical flow): say so
+        out["slip"] = {"note": "slip laws are not applied by this solver"}
+        return
+    slip = slip.with_model(solution.model)
+    speeds, stresses = slip.slip_speed(solution.u), slip.wall_stress(solution.u)
+    out["slip"] = {name: {"slip_speed": speeds[name], "wall_shear_stress": stresses[name],
+                          "law": {k: v for k, v in vars(law).items() if v is not None}}
+                   for name, law in solution.case.drive.slip.items()}
+
+
 def _yield_summary(solution: Solution, point_fields: dict | None, out: dict,
                    warnings: list[str]) -> None:
     model, domain = solution.model, solution.domain
-    out["unyielded_fraction"] = unyielded_fraction(solution)
+    out.update(unyielded_zones(solution, point_fields))
     out["yield_stress"] = model.yield_stress
     # moving walls always shear the material; with fixed walls the drive is compared
     # with the section's flow-start gradient (see flow_start_pressure_gradient)
     creeping = out.get("yields") is False
     already = any("does not flow" in w for w in warnings)
-    if creeping and not already:
+    # 2-D sections carry their own warning, from the section's limit load
+    if creeping and not already and domain.dimension == 1:
         start = out["flow_start_pressure_gradient"]
         warnings.append(f"the material does not yield: it does not flow below |dp/dz| = "
                         f"{start['value']:.4g} Pa/m ({start['source']}); the small flow "
                         "computed is creep of the regularised model, not a real flow, and "
                         "no Reynolds number or friction factor is given")
-    if domain.dimension == 1 and point_fields is not None:
-        out["plugs"] = plug_intervals(point_fields["x"][0], point_fields["shear_stress"],
-                                      model.yield_stress)
 
 
 def _extrapolation_warnings(case, out: dict) -> list[str]:

@@ -60,7 +60,8 @@ class Results:
     @cached_property
     def _summary(self) -> dict:
         one_d = self.solution.domain.dimension == 1
-        needs_fields = one_d and self.solution.model.is_yield_stress
+        # plug edges and unyielded fractions are located on the point fields
+        needs_fields = self.solution.model.is_yield_stress
         return post.summarise(self.solution, self.fields if needs_fields else None,
                               None if one_d else self.wall_distributions)
 
@@ -80,7 +81,11 @@ class Results:
 
 
 def profile_columns(results: Results) -> tuple[list[str], np.ndarray]:
-    """Header and rows of a 1-D profile, sorted across the gap, units in the names."""
+    """Header and rows of a 1-D profile, sorted across the gap, units in the names.
+
+    ``velocity [m/s]`` is the axial speed of an axial flow (helical flow adds
+    ``angular_speed [rad/s]`` and ``azimuthal_velocity [m/s]`` after it) and the azimuthal
+    speed between coaxial cylinders; heated flow ends with ``temperature [K]``."""
     f = results.fields
     x = f["x"][0]
     order = np.argsort(x)
@@ -88,11 +93,17 @@ def profile_columns(results: Results) -> tuple[list[str], np.ndarray]:
     if results.domain.kind == "axial":
         names = [coordinate, "velocity [m/s]"]
         columns = [x, f["velocity"]]
+        if "azimuthal_velocity" in f:   # helical flow: the rotation beside the axial speed
+            names += ["angular_speed [rad/s]", "azimuthal_velocity [m/s]"]
+            columns += [f["angular_speed"], f["azimuthal_velocity"]]
     else:
         names = [coordinate, "angular_speed [rad/s]", "velocity [m/s]"]
         columns = [x, f["angular_speed"], f["velocity"]]
     names += ["shear_rate [1/s]", "viscosity [Pa*s]", "shear_stress [Pa]"]
     columns += [f["shear_rate"], f["viscosity"], f["shear_stress"]]
+    if "temperature" in f:
+        names.append("temperature [K]")
+        columns.append(f["temperature"])
     return names, np.column_stack(columns)[order]
 
 

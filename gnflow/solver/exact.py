@@ -56,7 +56,9 @@ from .solution import Iteration, Solution, _History
 #: Points per element of the yield-term quadrature, by element degree. P1 has a constant
 #: gradient per element, so its centroid is exact (for the axisymmetric weight r too,
 #: which is linear). P2 has a linear gradient whose length has a kink at the yield
-#: surface, so no rule is exact there; see :func:`yield_quadrature` for the choice.
+#: surface, so no rule is exact there. Measured on the square duct (tau_y/tau_c = 0.5,
+#: 63 cells): the centroid alone is 2.7e-4 off the converged flow rate, the three-point
+#: rule 5e-6, for 3x the cones; the six-point rule changes it by 3e-6 more at 2x the cost.
 YIELD_POINTS = {1: 1, 2: 3}
 
 
@@ -73,9 +75,9 @@ def yield_quadrature(dim: int, points: int):
         return np.array([[1 / 3], [1 / 3]]), np.array([0.5])
     from skfem.quadrature import get_quadrature
     from skfem.refdom import RefTri
-    X, W = get_quadrature(RefTri, 2)
-    assert W.size == points
-    return X, W
+    if points != 3:
+        raise ValueError(f"triangles take 1 or 3 yield-term points, not {points}")
+    return get_quadrature(RefTri, 2)
 
 
 @dataclass(frozen=True)
@@ -576,7 +578,7 @@ def augmented_lagrangian_bingham(case: Case, section: ConicSection, penalty: flo
         q_new = (xi * shrink[:, None]).ravel()
         lam += r * (gradient - q_new)
         scale = max(np.linalg.norm(gradient), 1e-300)
-        residual = max(np.linalg.norm(gradient - q_new), r and np.linalg.norm(q_new - q)) / scale
+        residual = max(np.linalg.norm(gradient - q_new), np.linalg.norm(q_new - q)) / scale
         q = q_new
         if residual < tolerance:
             return AugmentedLagrangianResult(u, iteration, residual, True)

@@ -23,6 +23,10 @@ non-smooth points are regularised, as the bulk yield stress is: the slip yield s
 ``tau_s (1 - exp(-|u_s| / eps))`` (Papanastasiou's form applied to the wall), and
 ``p > 1`` (infinite ``F'`` at zero slip) by a floor on ``|u_s|``; ``eps`` is a small
 fraction of the case's speed scale.
+
+Newton starts from the no-slip start with each wall's slip set by its law at the wall
+stress that start exerts (:meth:`SlipProblem.slip_start`), and convergence is measured
+with the viscous force and the slip drag apart (:meth:`SlipProblem.relative_residual`).
 """
 
 from __future__ import annotations
@@ -37,8 +41,12 @@ from skfem import BilinearForm, FacetBasis, LinearForm, asm
 from .. import rheology
 from .assembly import Problem, _norm
 from .linear import LinearSolver
+from .newton import picard_step
 
-#: slip speeds are regularised below this fraction of the case's speed scale
+#: slip speeds are regularised below this fraction of the case's speed scale. A wall held
+#: by a slip yield stress creeps at about eps ln(tau_s / (tau_s - tau_w)): measured 1e-7 of
+#: the flow rate at 1e-8 (1e-5 at 1e-6, 1e-9 at 1e-10), with the same Newton iterations
+#: from 1e-6 to 1e-10 (the measure of convergence does not see the term's stiffness).
 SLIP_SMOOTHING = 1e-8
 
 
@@ -134,7 +142,7 @@ class WallSlip:
                 self._facet_bases[name] = FacetBasis(domain.basis.mesh, domain.basis.elem,
                                                      facets=facets)
 
-    def with_model(self, model) -> "WallSlip":
+    def with_model(self, model) -> WallSlip:
         other = object.__new__(WallSlip)
         other.__dict__.update(self.__dict__)
         other.model = model
@@ -237,10 +245,10 @@ class SlipProblem(Problem):
     """The discrete problem with slip on some walls: their dofs are unknowns, and the
     slip law's boundary term joins the residual and the tangent.
 
-    Picard steps (and the frozen-viscosity start) use the slip law's secant
-    ``F(u_s) / u_s`` at the state of the last frozen coefficient, so every frozen
-    operator keeps a Robin term on slipping walls and stays non-singular even when every
-    wall slips.
+    Picard steps use the slip law's secant ``F(u_s) / u_s`` at the state of the last
+    frozen coefficient, so every frozen operator keeps a Robin term on slipping walls and
+    stays non-singular even when every wall slips. The start is the no-slip one with the
+    slip its wall stresses call for (:meth:`slip_start`).
     """
 
     def __init__(self, domain, model, slip: WallSlip):
@@ -336,24 +344,23 @@ class SlipProblem(Problem):
 
         A start with the walls as unknowns from the outset is poor whatever the law: at
         zero slip the secant ``G(eps)/eps`` holds a wall with ``p > 1`` or a slip yield
-        stress fixed, and leaves one with ``p < 1`` almost free (the pressure gradient of
-        a flow-rate start was then 140 times too large). Instead each slipping wall's
+        stress fixed, and leaves one with ``p < 1`` almost free (the first Newton iterate of
+        a flow-rate drive then had a pressure gradient 140 times too large). Instead each slipping wall's
         stress is read from the no-slip start's reaction (exact for pipes and slits by
         statics, ``tau_w = -G R / 2``), the slip law gives the slip speed there, and one
         frozen solve with the slip secant at that slip and the start's viscosity spreads
         it into the bulk. Pressure-driven pipes and slits start at their solution: the
         slip flow is the no-slip flow plus the slip speed.
         """
-        from .newton import picard_step   # newton imports nothing from here; no cycle
         u, gradient = start
         shifted = u.copy()
-        shifted[self.slip.dofs] = (self._wall_speeds
-                                   + self._wall().slip_at_reaction(self.reaction(u, gradient)))[self.slip.dofs]
+        slip = self._wall().slip_at_reaction(self.reaction(u, gradient))
+        shifted[self.slip.dofs] = (self._wall_speeds + slip)[self.slip.dofs]
         coefficient = super().frozen_coefficient(u)
         self._frozen_state = shifted
         return picard_step(self, shifted, gradient, target, coefficient)
 
-    def sibling(self, model) -> "SlipProblem":
+    def sibling(self, model) -> SlipProblem:
         other = super().sibling(model)
         other._frozen_state = None
         return other
