@@ -428,8 +428,14 @@ def _demo(args) -> int:
 
 
 def main(argv: list[str] | None = None) -> int:
+    import warnings
     parser = _build_parser()
     args = parser.parse_args(argv)
+    # numerical warnings (overflow in an extreme iterate, deprecations inside libraries)
+    # are not messages for the user: every failure they lead to is reported by the
+    # solver's own checks as one line with exit code 3
+    warnings.filterwarnings("ignore", category=RuntimeWarning)
+    warnings.filterwarnings("ignore", category=DeprecationWarning)
     try:
         if args.command == "run":
             return _run_case(args.case, args.out, args.quiet)
@@ -464,6 +470,12 @@ def main(argv: list[str] | None = None) -> int:
     except CaseError as err:
         print(f"gnflow: error: {err}", file=sys.stderr)
         return 2
+    except ArithmeticError as err:
+        # a last line of defence: the models and the solver guard overflow where it arises
+        print(f"gnflow: not solved: the numbers of this case leave the floating-point range "
+              f"({type(err).__name__}: {str(err)[:80]}); check the units and sizes",
+              file=sys.stderr)
+        return 3
     except BrokenPipeError:  # output piped into a command that stopped reading
         sys.stderr.close()
         return 0

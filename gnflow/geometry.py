@@ -124,7 +124,18 @@ def _end_dof(basis: Basis, at_start: bool) -> np.ndarray:
 
 
 def build_domain(case: Case, cells: int | None = None) -> Domain:
-    """The :class:`Domain` of a case (``cells`` overrides ``case.mesh.cells``)."""
+    """The :class:`Domain` of a case (``cells`` overrides ``case.mesh.cells``); a mesh that
+    folds (too few cells for a strongly curved or eccentric section) is a bad input."""
+    try:
+        return _build_domain(case, cells)
+    except MeshMappingError as err:
+        shown = cells or case.mesh.cells
+        raise CaseError("mesh.cells", shown, message=(
+            f"mesh.cells = {shown}: the mesh of this {case.geometry.shape} folds ({err}); "
+            "give more cells")) from None
+
+
+def _build_domain(case: Case, cells: int | None = None) -> Domain:
     g, mesh = case.geometry, case.mesh
     cells = cells or mesh.cells
     speeds = case.drive.wall_speed

@@ -106,6 +106,9 @@ def hanks_critical_plug_ratio(hedstrom: float) -> float:
     # phi = c (1 - phi)^3 in logarithms, so that tiny and huge He keep full relative
     # precision: g(phi) = log(phi) - 3 log(1 - phi) - log(c), increasing on (0, 1)
     log_target = math.log(target)
+    if target > 1e40:
+        # 1 - phi = (phi / c)^(1/3) < 1e-13 rounds phi to 1: the asymptote is exact here
+        return 1.0 - target ** (-1.0 / 3.0)
 
     def gap(phi):
         return math.log(phi) - 3.0 * math.log1p(-phi) - log_target

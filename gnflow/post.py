@@ -19,6 +19,13 @@ Conventions of the summary (stated once here, printed with every summary):
   the walls (2-D: outside the neighbourhoods of singular corners). The direction of the
   force on each wall is given separately (``force_direction``); a wall that drives the
   flow is dragged back by the fluid, against the flow.
+
+Coupled physics take their wall stresses from their own balances: helical flow from the
+coupled residual (with both torques and the power split), heated flow from the coupled
+momentum-energy reaction (the viscosity varies with temperature), wall slip from the
+reaction without the slip term (the full residual vanishes at a slipping wall). Plug edges
+and unyielded fractions are located by interpolation (:mod:`gnflow.yielded`), each with
+its uncertainty.
 """
 
 from __future__ import annotations
@@ -30,8 +37,13 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from skfem import BilinearForm, FacetBasis, LinearForm, asm
 
-from .laminar import (APPROXIMATE_OFF_PIPE, bingham_plastic_reynolds, hedstrom_number,
-                      laminar_limit, laminar_warning)
+from .laminar import (
+    APPROXIMATE_OFF_PIPE,
+    bingham_plastic_reynolds,
+    hedstrom_number,
+    laminar_limit,
+    laminar_warning,
+)
 from .solver import Solution, invert_flow_curve
 from .solver.coupled import HelicalSolution
 from .solver.heat import HeatedSolution
@@ -462,7 +474,9 @@ def reynolds_number(solution: Solution, mean_velocity: float, wall_rate: float,
         return rho * V * D / model.viscosity_value, "rho V D_h / mu"
     if model.name == "power-law":
         n, K = model.flow_index, model.consistency
-        return (rho * V ** (2 - n) * D ** n / (K * 8 ** (n - 1) * ((3 * n + 1) / (4 * n)) ** n),
+        # numpy powers: an overflow gives inf (caught by the summary's checks), not an exception
+        V, D = np.float64(V), np.float64(D)
+        return (float(rho * V ** (2 - n) * D ** n / (K * 8 ** (n - 1) * ((3 * n + 1) / (4 * n)) ** n)),
                 "Metzner-Reed: rho V^(2-n) D_h^n / (K 8^(n-1) ((3n+1)/(4n))^n)")
     eta = float(model.viscosity(np.array([max(wall_rate, 1e-300)]))[0])
     return rho * V * D / eta, "rho V D_h / eta(mean wall shear rate)"
@@ -471,7 +485,7 @@ def reynolds_number(solution: Solution, mean_velocity: float, wall_rate: float,
 def flow_start_pressure_gradient(solution: Solution) -> dict | None:
     """The magnitude of the pressure gradient (Pa/m) a yield-stress fluid at rest in the
     section needs to start flowing, with fixed walls; None if walls move or the fluid has
-    no yield stress.
+    no yield stress or a wall turns (helical flow).
 
     * pipe of radius R: ``2 tau_y / R``; slit of gap h: ``tau_y / (h/2)``; concentric
       annulus: ``2 tau_y / (R_o - R_i)``, exact: the stress ``tau(r) = G r / 2 - C / r``
@@ -484,8 +498,10 @@ def flow_start_pressure_gradient(solution: Solution) -> dict | None:
       ``tau_y`` times the section's Cheeger constant, is at most this).
     """
     domain, model = solution.domain, solution.model
+    # a turning wall (helical flow) shears the material whatever the pressure gradient
     if (not model.is_yield_stress or domain.kind != "axial"
-            or any(w.value != 0 for w in domain.walls.values())):
+            or any(w.value != 0 for w in domain.walls.values())
+            or isinstance(solution, HelicalSolution)):
         return None
     tau_y = model.yield_stress
     g = solution.case.geometry
@@ -692,7 +708,7 @@ def _reynolds_summary(solution: Solution, out: dict, warnings: list[str], wall_d
     if not wall_driven:
         # f = (-dp/dz along the flow) D_h / (2 rho V^2); with fixed walls this equals the
         # mean wall shear stress over rho V^2 / 2 by the force balance
-        out["fanning_friction_factor"] = out["pressure_drop_per_length"] * D / (2 * rho * V ** 2)
+        out["fanning_friction_factor"] = out["pressure_drop_per_length"] * D / (2 * rho * V * V)
     critical, criterion = laminar_limit(model, rho, D)
     compared, compared_name = re, "reynolds_number"
     if model.name == "bingham":

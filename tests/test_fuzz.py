@@ -536,13 +536,6 @@ def test_fuzz_check(tmp_path, one_parser):
     assert not failures, report + "\n" + "\n".join(failures[:20])
 
 
-@pytest.mark.xfail(strict=False, reason=(
-    "solver and post-processing failures found by this fuzzer, owned outside the input "
-    "layer (2026-12-02): ValueError from the laminar criterion of gnflow/laminar.py at a "
-    "yield stress of 1e300 Pa; OverflowError (errno 34) in solver/assembly.py and post.py "
-    "at extreme scales; numpy RuntimeWarnings printed on stderr; MeshMappingError escaping "
-    "geometry.py for eccentric annuli at few cells; slow solves of very elongated "
-    "rectangles. Remove this mark when they are fixed."))
 def test_fuzz_run(tmp_path, one_parser):
     """Mutated cases through ``gnflow run`` on tiny meshes: exit 0, 2 or 3; a converged
     summary holds only finite numbers."""

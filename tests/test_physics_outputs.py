@@ -313,3 +313,37 @@ def test_2d_unyielded_fraction_comes_with_its_uncertainty_and_no_1d_warning():
     assert not any(w.startswith("the material does not yield") for w in s["warnings"])
     assert any("does not flow" in w for w in s["warnings"])
 
+
+
+def test_helical_plug_edges_match_the_semi_analytic_helical_flow():
+    """Bingham fluid in a concentric annulus with the inner wall turning: the plug lies
+    where the stress of the whole motion, sqrt(tau_rz^2 + tau_rtheta^2), is below the yield
+    stress; reference :func:`gnflow.analytic.helical_annulus_flow` for the model as solved
+    (quadrature and root finding, independent of the FE code)."""
+    from scipy.optimize import brentq
+    ri, ro, tau_y = 0.05, 0.1, 5.0
+    case = Case.from_dict({"fluid": {"model": "bingham", "yield_stress": tau_y,
+                                     "plastic_viscosity": 0.03},
+                           "geometry": {"shape": "annulus", "inner_radius": ri,
+                                        "outer_radius": ro},
+                           "drive": {"pressure_gradient": -2000.0, "inner_angular_speed": 20.0},
+                           "mesh": {"cells": 50}})
+    results = gnflow.solve(case)
+    s = results.summary()
+    assert s["converged"], s["message"]
+    assert s["yields"]          # the turning wall shears the material at any gradient
+    reference = analytic.helical_annulus_flow(results.model, ri, ro, -2000.0, 20.0)
+
+    def excess(r):
+        return float(np.hypot(reference.axial_stress(r), reference.azimuthal_stress(r))) - tau_y
+    grid = np.linspace(ri, ro, 401)
+    values = np.array([excess(r) for r in grid])
+    crossings = np.nonzero(np.sign(values[:-1]) != np.sign(values[1:]))[0]
+    exact = [brentq(excess, grid[i], grid[i + 1], xtol=1e-14) for i in crossings]
+    spacing = np.max(np.diff(np.sort(results.fields["x"][0])))
+    (start, end), = s["plugs"]
+    assert len(exact) == 2
+    assert abs(start - exact[0]) < 0.01 * spacing
+    assert abs(end - exact[1]) < 0.01 * spacing
+    assert s["unyielded_fraction"] == pytest.approx((end ** 2 - start ** 2) / (ro ** 2 - ri ** 2),
+                                                    rel=1e-12)

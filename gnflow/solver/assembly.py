@@ -193,7 +193,8 @@ class Problem:
             gradient = self.plan.gradient(u)
             s2 = self.rate_factor ** 2
             # a smooth floor, sqrt(g^2 + floor^2), keeps the tangent continuous (RATE_FLOOR)
-            rate = np.sqrt(s2 * np.sum(gradient ** 2, axis=0) + self.rate_floor ** 2)
+            # floor * floor: a Python float ** 2 raises OverflowError where numpy gives inf
+            rate = np.sqrt(s2 * np.sum(gradient ** 2, axis=0) + self.rate_floor * self.rate_floor)
             coefficient = self.area_weight * s2 * self.model.viscosity(rate)
             self._memo = [u, key, gradient, rate, coefficient, None]
         _, _, gradient, rate, coefficient, extra = self._memo

