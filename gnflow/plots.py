@@ -142,9 +142,15 @@ def profile_plot(results: "Results | Solution", path: Path) -> None:
     plug = stress < yield_stress if yield_stress is not None else np.zeros(x.size, bool)
     newtonian = model.name == "newtonian"
 
-    panels = 3 if newtonian else 4
+    extra = [(key, label) for key, label in (("azimuthal_velocity", "azimuthal velocity [m/s]"),
+                                             ("temperature", "temperature [degC]")) if key in f]
+    panels = (3 if newtonian else 4) + len(extra)
     fig, axes = plt.subplots(1, panels, figsize=(3.0 * panels + 0.8, 4.3), sharey=True,
                              layout="constrained")
+    for ax, (key, label) in zip(axes[panels - len(extra):], extra):
+        shift = 273.15 if key == "temperature" else 0.0
+        ax.plot(f[key][order] - shift, x, color="tab:purple" if shift else "tab:cyan")
+        ax.set_xlabel(label)
     axes[0].plot(speed, x, color="tab:blue")
     axes[0].set_xlabel(speed_label)
     axes[1].plot(rate, x, color="tab:orange")
@@ -269,6 +275,10 @@ def _map_panels(results: Results, f: dict, vertices: int) -> list[tuple]:
               ("shear stress [Pa]", f["shear_stress"][:vertices], False)]
     if results.model.name != "newtonian":
         panels.append(("apparent viscosity [Pa*s]", f["viscosity"][:vertices], True))
+    if "azimuthal_velocity" in f:    # helical flow: the swirl beside the axial speed
+        panels.insert(1, ("azimuthal velocity [m/s]", f["azimuthal_velocity"][:vertices], False))
+    if "temperature" in f:           # viscous heating
+        panels.append(("temperature [degC]", f["temperature"][:vertices] - 273.15, False))
     return panels
 
 

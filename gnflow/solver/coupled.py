@@ -31,6 +31,13 @@ the Hessian of ``Phi``: symmetric, and positive definite for every monotone flow
 (its coefficient along ``c`` is ``a d tau / d gamma > 0``). With a flow rate instead of
 ``G`` the system is bordered as in :mod:`gnflow.solver.newton`.
 
+Linear systems: in 1-D the unknowns are numbered by position, so the operator is banded
+and is summed straight into LAPACK's band storage and factored by banded Cholesky. In 2-D
+the saddle system (velocities and in-plane pressure) is factored by SuperLU in a
+nested-dissection order (:func:`nested_dissection`), and after the first Newton step each
+system is solved by GMRES preconditioned with the last factorisation, refactoring only
+when that does not reach the inexact-Newton accuracy (:class:`_ReusingSolver`).
+
 Assumptions (also returned with every solution): steady, laminar, isothermal, fully
 developed flow with no inertia: the in-plane flow is creeping, the axial momentum is not
 convected by the in-plane flow, and there are no Taylor vortices. A Taylor number is
@@ -164,17 +171,44 @@ class StrainPlan:
         """``int weight coefficient |c(v)|^2`` for every unknown."""
         return self._scatter(np.einsum("elq,eq->el", self.squares, coefficient * self.weight))
 
-    def matrix(self, coefficient, tangent_coefficient=None, components=None) -> sp.csr_matrix:
-        """The operator on the free unknowns (frozen viscosity, or the Newton tangent)."""
+    def _element_matrices(self, coefficient, tangent_coefficient, components) -> np.ndarray:
         weighted = self.flat * np.tile(coefficient * self.weight, (1, self.nk))[:, None, :]
         local = np.matmul(weighted, self.flat.transpose(0, 2, 1))
         if tangent_coefficient is not None:
             along = np.einsum("elkq,ekq->elq", self.operators, components)
             local += np.matmul(along * (tangent_coefficient * self.weight)[:, None, :],
                                along.transpose(0, 2, 1))
+        return local
+
+    def matrix(self, coefficient, tangent_coefficient=None, components=None) -> sp.csr_matrix:
+        """The operator on the free unknowns (frozen viscosity, or the Newton tangent)."""
+        local = self._element_matrices(coefficient, tangent_coefficient, components)
         data = np.bincount(self.position, weights=local[self.keep], minlength=self.indices.size)
         return sp.csr_matrix((data, self.indices, self.indptr),
                              shape=(self.free_size, self.free_size))
+
+    def upper_band(self, order, coefficient, tangent_coefficient=None,
+                   components=None) -> np.ndarray:
+        """The same operator with the free unknowns renumbered by ``order``, as its upper
+        band in LAPACK's storage (``band[u + i - j, j] = A[i, j]``, ``i <= j``), summed
+        straight from the element matrices (measured: a third of the 1-D solve went into
+        building the CSR matrix, permuting it and cutting out its band)."""
+        layout = getattr(self, "_band_layout", None)
+        if layout is None or layout[0] is not order:
+            rank = np.empty(order.size, dtype=np.int64)
+            rank[order] = np.arange(order.size)
+            unique = self.indptr.size - 1
+            rows = np.repeat(np.arange(unique), np.diff(self.indptr))[self.position]
+            i, j = rank[rows], rank[self.indices[self.position]]
+            upper = i <= j
+            width = int(np.max(j[upper] - i[upper], initial=0))
+            flat = (width + i[upper] - j[upper]) * order.size + j[upper]
+            layout = self._band_layout = (order, upper, flat, width)
+        _, upper, flat, width = layout
+        local = self._element_matrices(coefficient, tangent_coefficient, components)
+        band = np.bincount(flat, weights=local[self.keep][upper],
+                           minlength=(width + 1) * order.size)
+        return band.reshape(width + 1, order.size)
 
 
 @dataclass
@@ -243,28 +277,31 @@ class CoupledProblem:
             continuity = np.linalg.norm(self.divergence @ x) / max(size, 1e-300)
         return float(max(np.linalg.norm(residual) / max(max(scales), 1e-300), continuity))
 
-    def linear_solver(self, x, consistent: bool, viscosity_override=None):
+    def linear_solver(self, x, consistent: bool, viscosity_override=None, accuracy=0.0):
         """A solver for the linear system on the free unknowns (bordered by the divergence
         in 2-D): the Newton tangent, the frozen-viscosity operator, or the operator with a
-        given viscosity."""
+        given viscosity. In 2-D a relative ``accuracy`` > 0 lets it reuse the last
+        factorisation (:class:`_ReusingSolver`); 1-D solves are always exact."""
         components, rate, viscosity = self.state(x)
+        tangent = None
         if viscosity_override is not None:
             viscosity = np.broadcast_to(viscosity_override, rate.shape)
-            matrix = self.plan.matrix(viscosity)
         elif consistent:
             tangent = self.model.viscosity_derivative(rate) / rate
-            matrix = self.plan.matrix(viscosity, tangent, components)
-        else:
-            matrix = self.plan.matrix(viscosity)
+        if self.banded_order is not None:
+            try:
+                return _BandFactor(self.plan.upper_band(self.banded_order, viscosity, tangent,
+                                                        components), self.banded_order)
+            except np.linalg.LinAlgError:       # a non-positive pivot: LU below
+                pass
+        matrix = self.plan.matrix(viscosity, tangent, components)
         if self.divergence is None:
-            if self.banded_order is not None:
-                return _Factor(matrix[self.banded_order][:, self.banded_order], self.banded_order)
-            return _Factor(matrix.tocsc(), None)
+            return _LU(matrix)
         constraint = self.divergence[:, self.free]
         saddle = sp.bmat([[matrix, constraint.T], [constraint, None]], format="csr")
         if self.saddle_order is None:
             self.saddle_order = nested_dissection(saddle, self.points)
-        return _ReusingSolver(saddle, self)
+        return _ReusingSolver(saddle, self, accuracy)
 
     def flow_rate(self, x) -> float:
         return float(self.load @ x)
@@ -285,10 +322,11 @@ class Iterate:
 
 
 def _step(problem: CoupledProblem, it: Iterate, target_rate, consistent=True,
-          viscosity_override=None):
-    """One Newton (or frozen-viscosity) correction: (dx, dp, dG)."""
+          viscosity_override=None, accuracy=0.0):
+    """One Newton (or frozen-viscosity) correction: (dx, dp, dG), its linear systems
+    solved to the relative ``accuracy`` (0: exactly)."""
     free, n = problem.free, problem.free.size
-    factor = problem.linear_solver(it.x, consistent, viscosity_override)
+    factor = problem.linear_solver(it.x, consistent, viscosity_override, accuracy)
     if viscosity_override is not None:
         # a linear solve from the wall values: the correction takes x to the solution
         start = Iterate(problem.boundary, np.zeros(problem.pressure_size), it.gradient)
@@ -382,24 +420,25 @@ class _SaddleFactor:
 class _ReusingSolver:
     """Solves a 2-D saddle system with GMRES preconditioned by the problem's last
     factorisation, and factors this system afresh (keeping that factor for the next ones)
-    when GMRES has not reached ``REUSE_TOLERANCE`` in ``REUSE_ITERATIONS``.
+    when GMRES has not reached the relative ``accuracy`` in ``REUSE_ITERATIONS``.
 
     Why: one factorisation at 100k unknowns costs about 35 of its back-substitutions
-    (measured: 5.1 s against 0.14 s), and from one Newton step to the next the tangent
-    changes little, so a stale factor is an excellent preconditioner. A solve to this
-    tolerance is an inexact Newton step (Dembo, Eisenstat & Steihaug 1982): the iteration
-    still converges, at most linearly by the factor ``REUSE_TOLERANCE`` per step.
+    (measured: 5.1 s against 0.14 s), and a factor of the tangent a few steps back still
+    preconditions well (measured: the residual falls 5 to 10 times per GMRES iteration;
+    at 100k unknowns a reused solve took about 2 s against 5.5 s for a factorisation).
+    A solve to relative ``accuracy`` is an inexact Newton step (Dembo, Eisenstat &
+    Steihaug 1982): with ``accuracy`` shrinking like the nonlinear residual the iteration
+    keeps its superlinear convergence. ``accuracy = 0`` factors afresh.
     """
 
-    REUSE_TOLERANCE = 1e-7
-    REUSE_ITERATIONS = 8
+    REUSE_ITERATIONS = 12
 
-    def __init__(self, matrix: sp.csr_matrix, problem: "CoupledProblem"):
-        self.matrix, self.problem, self.fresh = matrix, problem, False
+    def __init__(self, matrix: sp.csr_matrix, problem: "CoupledProblem", accuracy: float):
+        self.matrix, self.problem, self.accuracy, self.fresh = matrix, problem, accuracy, False
 
     def solve(self, rhs):
         stale = self.problem.saddle_factor
-        if stale is not None and not self.fresh:
+        if stale is not None and not self.fresh and self.accuracy > 0:
             found = self._preconditioned(stale, rhs)
             if found is not None:
                 return found
@@ -413,49 +452,36 @@ class _ReusingSolver:
         if size == 0:
             return np.zeros_like(rhs)
         preconditioner = spla.LinearOperator(self.matrix.shape, factor.solve)
-        found, _ = spla.gmres(self.matrix, rhs, M=preconditioner, rtol=0.1 * self.REUSE_TOLERANCE,
+        found, _ = spla.gmres(self.matrix, rhs, M=preconditioner, rtol=0.1 * self.accuracy,
                               restart=self.REUSE_ITERATIONS, maxiter=1)
         # judged by the true residual, whatever norm GMRES used
-        if np.linalg.norm(rhs - self.matrix @ found) <= self.REUSE_TOLERANCE * size:
+        if np.linalg.norm(rhs - self.matrix @ found) <= self.accuracy * size:
             return found
         return None
 
 
-class _Factor:
-    """The factorisation of one linear system: banded Cholesky (LAPACK) for the 1-D
-    tangent in its banded order (symmetric positive definite, see the module docstring),
-    sparse LU otherwise, and sparse LU too should Cholesky meet a non-positive pivot."""
+class _BandFactor:
+    """Banded Cholesky (LAPACK) of the 1-D operator in its banded order: symmetric
+    positive definite (see the module docstring), factored in linear time, no fill-in.
+    Raises ``LinAlgError`` on a non-positive pivot."""
 
-    def __init__(self, matrix, order):
-        self.order, self.band, self.lu = order, None, None
-        if order is not None:
-            try:
-                self.band = cholesky_banded(_upper_band(matrix))
-                return
-            except np.linalg.LinAlgError:
-                pass
-        self.lu = spla.splu(matrix.tocsc())
+    def __init__(self, upper_band: np.ndarray, order: np.ndarray):
+        self.order, self.band = order, cholesky_banded(upper_band)
 
     def solve(self, rhs):
-        if self.order is None:
-            return self.lu.solve(rhs)
         solution = np.empty_like(rhs)
-        permuted = rhs[self.order]
-        solution[self.order] = (cho_solve_banded((self.band, False), permuted)
-                                if self.band is not None else self.lu.solve(permuted))
+        solution[self.order] = cho_solve_banded((self.band, False), rhs[self.order])
         return solution
 
 
-def _upper_band(matrix) -> np.ndarray:
-    """The upper band of a symmetric sparse matrix in LAPACK's storage
-    (``band[u + i - j, j] = A[i, j]``, ``i <= j``)."""
-    coo = matrix.tocoo()
-    upper = coo.row <= coo.col
-    rows, cols, data = coo.row[upper], coo.col[upper], coo.data[upper]
-    width = int(np.max(cols - rows, initial=0))
-    band = np.zeros((width + 1, matrix.shape[0]))
-    np.add.at(band, (width + rows - cols, cols), data)
-    return band
+class _LU:
+    """Sparse LU of a 1-D operator that Cholesky refused."""
+
+    def __init__(self, matrix: sp.csr_matrix):
+        self.lu = spla.splu(matrix.tocsc())
+
+    def solve(self, rhs):
+        return self.lu.solve(rhs)
 
 
 def _full_residual(problem: CoupledProblem, it: Iterate) -> np.ndarray:
@@ -509,11 +535,18 @@ def iterate(problem: CoupledProblem, it: Iterate, target_rate, method: str, tole
     """Newton (consistent tangent, line search on the dissipation) or Picard (frozen
     viscosity) from ``it``; returns (iterate, converged, iterations, residual)."""
     residual = _merit(problem, it, target_rate)
+    first = counted
     for _ in range(max_iterations):
         if residual <= tolerance:
             return it, True, counted, residual
         counted += 1
-        dx, dp, dg = _step(problem, it, target_rate, consistent=method == "newton")
+        # forcing term of the inexact Newton method: loose far from the solution, tight
+        # near it, but no tighter than 1e-4, which still takes the residual down 1e4 times
+        # a step (1-D solves are exact whatever it says); the first step factors afresh,
+        # since a frozen-viscosity factor preconditions the tangent poorly (measured)
+        accuracy = min(1e-2, max(0.1 * residual, 1e-4)) if counted > first + 1 else 0.0
+        dx, dp, dg = _step(problem, it, target_rate, consistent=method == "newton",
+                           accuracy=accuracy)
         step = 1.0
         trial = Iterate(it.x + dx, it.pressure + dp, it.gradient + dg)
         trial_residual = _merit(problem, trial, target_rate)
@@ -873,6 +906,28 @@ def _intervals(r: np.ndarray, mask: np.ndarray) -> list[tuple[float, float]]:
             runs.append((float(radii[start]), float(radii[end])))
             start = None
     return runs
+
+
+#: the quantities of a helical solution a mesh-convergence study follows (key -> label)
+CONVERGENCE_QUANTITIES = {
+    "inner_torque_per_length": "torque per length on the inner wall",
+    "outer_torque_per_length": "torque per length on the outer wall",
+    "rotational_power_per_length": "rotational power per length",
+    "dissipation_per_length": "dissipation per length",
+}
+
+
+def helical_convergence_quantities(solution: HelicalSolution) -> dict[str, float]:
+    """The scalars of a helical solution a mesh-convergence study follows beside its
+    headline flow rate or pressure gradient: the torque per length (N m/m) applied to
+    each wall, the rotational power ``sum Omega M`` and the dissipation ``int eta gamma^2
+    dA`` (W/m). Each converges as the mesh is refined, the torques (wall reactions of the
+    coupled residual) at the order of the energy, twice the velocity's gradient order."""
+    torque, power = solution.torque_per_length, solution.power_per_length
+    return {"inner_torque_per_length": float(torque.get("inner", math.nan)),
+            "outer_torque_per_length": float(torque.get("outer", math.nan)),
+            "rotational_power_per_length": float(power.get("rotational", math.nan)),
+            "dissipation_per_length": float(power.get("dissipation", math.nan))}
 
 
 def taylor_number(case: Case, viscosity_at_dofs) -> float | None:
