@@ -370,6 +370,16 @@ class Case:
         heat = None
         if "heat" in mapping:
             heat = _parse_heat(_table(mapping, "heat"), fluid, _wall_names(geometry))
+            combined = [what for what, present in (
+                ("wall slip (drive.slip)", bool(drive.slip)),
+                ("rotation (drive.*_angular_speed)", geometry.shape == "annulus" and bool(
+                    drive.inner_angular_speed or drive.outer_angular_speed)),
+                ('exact yield-stress flow (method = "none")', fluid.regularisation == "none"))
+                if present]
+            if combined:
+                raise CaseError("heat", message=(
+                    f"[heat]: viscous heating is not yet solved together with "
+                    f"{' or '.join(combined)}; leave one of them out"))
         return cls(title, fluid, geometry, drive, mesh, solver, output, source,
                    copy.deepcopy(mapping), notices, heat)
 

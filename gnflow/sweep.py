@@ -123,10 +123,21 @@ def sweepable_keys(case: Case) -> dict[str, str]:
                      shape, tuple(case.drive.wall_speed))
         for wall in walls:
             keys[f"drive.wall_speed.{wall}"] = "velocity"
+        if shape == "annulus":   # rotation beside the axial drive: helical flow
+            keys["drive.inner_angular_speed"] = "angular_speed"
+            keys["drive.outer_angular_speed"] = "angular_speed"
+        for wall, law in case.drive.slip.items():
+            for name, value in law.__dict__.items():
+                if value is not None and name != "exponent":
+                    dimension = {"length": "length", "yield_stress": "stress"}.get(
+                        name, "slip_coefficient" if law.exponent == 1.0 else "dimensionless")
+                    keys[f"drive.slip.{wall}.{name}"] = dimension
     else:
         keys["drive.inner_angular_speed"] = "angular_speed"
         keys["drive.outer_angular_speed"] = "angular_speed"
-    keys.update({"mesh.cells": "whole", "mesh.grading": "dimensionless",
+    if case.heat is not None:
+        keys["heat.conductivity"] = "thermal_conductivity"
+    keys.update({"mesh.cells": "whole", "mesh.wall_refinement": "dimensionless",
                  "solver.tolerance": "dimensionless", "solver.max_iterations": "whole"})
     return keys
 

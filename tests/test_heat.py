@@ -162,3 +162,45 @@ def test_drive_continuation_brackets_a_turning_point():
             schedule.reject(lam)
     low, high = schedule.critical
     assert low <= fails_above < high and high - low < 2e-3   # twice the smallest step
+
+
+def test_heat_section_from_the_case_file_runs_through_solve():
+    """The [heat] section end to end: the Brinkman pipe through gnflow.solve, with the
+    summary's heat block, and a rotating gap that heats itself (it must converge and its
+    torque balance hold)."""
+    import gnflow
+    R, G = 0.004, -2e5
+    results = gnflow.solve(Case.from_dict({
+        "fluid": {"model": "newtonian", "viscosity": MU},
+        "geometry": {"shape": "pipe", "radius": R}, "drive": {"pressure_gradient": G},
+        "heat": {"conductivity": K, "wall_temperature": f"{T0} K"}}))
+    summary = results.summary()
+    assert summary["converged"]
+    assert summary["heat"]["max_temperature_rise"] == pytest.approx(
+        G ** 2 * R ** 4 / (64 * K * MU), rel=1e-8)
+    gap = gnflow.solve(Case.from_dict({
+        "fluid": {"model": "carreau", "zero_shear_viscosity": 100.0, "time_constant": 0.5,
+                  "flow_index": 0.5},
+        "geometry": {"shape": "coaxial-cylinders", "inner_radius": 0.02, "outer_radius": 0.022},
+        "drive": {"inner_angular_speed": "300 rpm"},
+        "heat": {"conductivity": K, "wall_temperature": "300 K",
+                 "temperature_coefficient": "0.03 1/K", "reference_temperature": "300 K"}}))
+    assert gap.summary()["converged"] and gap.summary()["heat"]["max_temperature_rise"] > 0
+
+
+@pytest.mark.parametrize("extra, fragment", [
+    ({"drive": {"pressure_gradient": -1e5, "slip": {"wall": {"coefficient": 1e-4}}}}, "wall slip"),
+    ({"heat": {"conductivity": K}}, "missing key heat.wall_temperature"),
+    ({"heat": {"conductivity": K, "wall_temperature": "300 K", "insulated": ["wall"]}},
+     "at least one wall"),
+    ({"heat": {"conductivity": K, "wall_temperature": "300 K", "insulated": ["wal"]}},
+     "one of the walls"),
+    ({"heat": {"conductivity": "0.2 W/m", "wall_temperature": "300 K"}}, "conductivity"),
+])
+def test_bad_heat_sections_are_refused(extra, fragment):
+    raw = {"fluid": {"model": "newtonian", "viscosity": MU},
+           "geometry": {"shape": "pipe", "radius": 0.004}, "drive": {"pressure_gradient": -1e5},
+           "heat": {"conductivity": K, "wall_temperature": "300 K"}}
+    raw.update(extra)
+    with pytest.raises(CaseError, match=fragment):
+        Case.from_dict(raw)
