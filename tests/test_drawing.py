@@ -312,3 +312,27 @@ def test_missing_gmsh_says_how_to_install_it(monkeypatch):
     section = drawing.parse("triangle", {"side": 0.01})
     with pytest.raises(CaseError, match=r'needs the gmsh package.*pip install "gnflow\[mesh\]"'):
         drawing.mesh(section, 4, 2)
+
+
+def test_section_command_verify_and_sweep_on_a_drawn_shape(tmp_path):
+    """`gnflow section` draws the drawn example to a PNG; `verify` and `sweep` run on it."""
+    pytest.importorskip("gmsh")
+    from pathlib import Path
+
+    from gnflow.cli import main
+    example = Path(__file__).resolve().parents[1] / "gnflow" / "examples" / \
+        "drawn_ellipse_squeezed_hose.toml"
+    png = tmp_path / "section.png"
+    assert main(["section", str(example), "--out", str(png), "--quiet"]) == 0
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert main(["verify", str(example), "--levels", "3", "--out", str(tmp_path / "v"),
+                 "--quiet"]) == 0
+    assert (tmp_path / "v" / "convergence.csv").exists()
+    assert main(["sweep", str(example), "--vary", "drive.pressure_gradient=-100Pa/m..-400Pa/m",
+                 "--points", "2", "--workers", "1", "--out", str(tmp_path / "s"),
+                 "--quiet"]) == 0
+    rows = (tmp_path / "s" / "sweep.csv").read_text().splitlines()
+    assert len(rows) == 3
+    # a shape that is not drawn is refused with one line and exit code 2
+    plain = Path(__file__).resolve().parents[1] / "gnflow" / "examples" / "paste_slit_die.toml"
+    assert main(["section", str(plain), "--out", str(tmp_path / "x.png")]) == 2
