@@ -487,9 +487,8 @@ def _solution(case, domain, heat, problem, u, T, G, converged, used, history, sc
         message = (f"not converged: no steady solution beyond {low:.4g} to {high:.4g} of the "
                    f"drive ({low * drive:.5g} to {high * drive:.5g} {unit}); {cause}")
         if low == 0.0:
-            message = (f"not converged: no steady solution found even at {high:.3g} of the "
-                       f"drive ({high * drive:.5g} {unit}) from the isothermal start; {cause}, "
-                       "or the case is far outside the range it was meant for")
+            message = (f"not converged: no steady heated solution even at {high:.3g} of the "
+                       f"drive ({high * drive:.4g} {unit}); check the drive and sizes")
         warnings.append(message)
     else:
         message = (f"not converged after {used} iterations (relative residual "
