@@ -367,6 +367,12 @@ class Case:
         solver = _parse_solver(_table(mapping, "solver", required=False))
         output = _parse_output(_table(mapping, "output", required=False))
         notices = (*mesh_notices, *_bare_number_notices(mapping, fluid, geometry))
+        if drive.slip and (fluid.regularisation == "none" or (
+                geometry.shape == "annulus"
+                and (drive.inner_angular_speed or drive.outer_angular_speed))):
+            raise CaseError("drive.slip", message=(
+                "drive.slip: wall slip is not yet solved with rotation or with the exact "
+                'method (method = "none"); leave one of them out'))
         if fluid.regularisation == "none" and not geometry.is_one_dimensional:
             # the conic solver handles 2-D sections (gnflow.solver.exact.solve_exact), but
             # the wall stresses of its solution are not yet derived from its own stress

@@ -317,3 +317,19 @@ def test_start_of_a_pressure_driven_pipe_with_slip_is_the_mooney_sum():
              + math.pi * SIZE["pipe"] ** 2 * slip)
     assert problem.flow_rate(u) == pytest.approx(exact, rel=1e-2)
     assert u[problem.slip.dofs[0]] == pytest.approx(slip, rel=1e-2)
+
+
+@pytest.mark.parametrize("extra", [
+    {"fluid": {"model": "bingham", "yield_stress": 1.0, "plastic_viscosity": 1.0,
+               "regularisation": {"method": "none"}}},
+    {"geometry": {"shape": "annulus", "inner_radius": 0.01, "outer_radius": 0.02},
+     "drive": {"pressure_gradient": -1e4, "inner_angular_speed": "60 rpm",
+               "slip": {"outer": {"coefficient": 1e-4}}}},
+])
+def test_slip_with_rotation_or_the_exact_method_is_refused(extra):
+    """Combinations the solvers do not yet treat together are bad input, not ignored."""
+    raw = {"fluid": NEWTONIAN, "geometry": {"shape": "pipe", "radius": 0.01},
+           "drive": {"pressure_gradient": -1e4, "slip": {"wall": {"coefficient": 1e-4}}}}
+    raw.update(extra)
+    with pytest.raises(CaseError, match="not yet solved with rotation"):
+        Case.from_dict(raw)
