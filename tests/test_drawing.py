@@ -30,7 +30,7 @@ def _solve(table, cells, degree=2, fluid=NEWTONIAN, gradient=G, refine=1.0):
     """Solve on a drawn section through geometry._section_domain, with a stand-in case
     (a rectangle) that supplies the fluid, the drive and the solver settings."""
     from gnflow.geometry import _section_domain
-    from gnflow.solver import solve
+    from gnflow import solve
 
     case = Case.from_dict({"fluid": fluid, "geometry": {"shape": "rectangle", "width": 1,
                                                         "height": 1},

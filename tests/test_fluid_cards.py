@@ -11,7 +11,7 @@ from gnflow import analytic
 from gnflow.case import Case
 from gnflow.errors import CaseError
 from gnflow.fit import fit_models, fluid_definition, read_flow_curve
-from gnflow.solver import solve
+from gnflow import solve
 
 PIPE = {"geometry": {"shape": "pipe", "radius": "12 mm"},
         "drive": {"pressure_gradient": "-6 kPa/m"}}

@@ -11,7 +11,7 @@ from gnflow import analytic, geometry
 from gnflow.case import Case
 from gnflow.convergence import observed_orders
 from gnflow.geometry import _signed_areas, build_domain
-from gnflow.solver import solve
+from gnflow import solve
 from gnflow.solver.sequencing import interpolated
 
 NEWTONIAN = {"model": "newtonian", "viscosity": 1.0}

@@ -13,7 +13,7 @@ import pytest
 from gnflow.case import Case
 from gnflow.cli import main
 from gnflow.export import clean_for_json
-from gnflow.solver import solve
+from gnflow import solve
 
 PIPE = {"shape": "pipe", "radius": 0.01}
 SLIT = {"shape": "slit", "gap": 0.01}

@@ -10,7 +10,7 @@ from gnflow import analytic
 from gnflow.case import Case
 from gnflow.convergence import observed_orders
 from gnflow.errors import CaseError
-from gnflow.solver import solve
+from gnflow import solve
 
 
 def _case(fluid, geometry, drive, **extra):

@@ -21,7 +21,7 @@ from gnflow import analytic
 from gnflow.case import Case
 from gnflow.errors import CaseError
 from gnflow.mooney import fit_slip_law, slip_at_stress
-from gnflow.solver import solve
+from gnflow import solve
 
 
 def _pipe(fluid, G, slip, radius=0.01, **mesh):

@@ -14,7 +14,7 @@ import pytest
 
 from gnflow import analytic
 from gnflow.case import Case
-from gnflow.solver import solve
+from gnflow import solve
 
 SMOOTH_FLUIDS = {
     "newtonian": {"model": "newtonian", "viscosity": 0.8},

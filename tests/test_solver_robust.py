@@ -19,10 +19,7 @@ from gnflow.solver.newton import FORCING_MAX, forcing_term
 
 def _summary(solution) -> dict:
     """The summary as the outputs write it (the results object, where it exists)."""
-    try:
-        from gnflow.results import as_results
-    except ImportError:
-        return solution.summary()
+    from gnflow.results import as_results
     return as_results(solution).summary()
 
 

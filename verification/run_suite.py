@@ -27,7 +27,7 @@ sys.path.insert(0, str(HERE.parent))
 
 from gnflow import analytic  # noqa: E402
 from gnflow.case import Case  # noqa: E402
-from gnflow.solver import solve  # noqa: E402
+from gnflow import solve  # noqa: E402
 from gnflow.verify import convergence_plot, run_verification  # noqa: E402
 
 CASES = HERE / "cases"

@@ -56,7 +56,8 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
     >>> from gnflow.case import Case
     >>> case = Case.from_dict({"fluid": {"model": "newtonian", "viscosity": 1.0},
     ...     "geometry": {"shape": "slit", "gap": 1.0}, "drive": {"pressure_gradient": -12.0}})
-    >>> round(solve(case).summary()["flow_rate"], 9)   # -G h^3 / (12 mu) per unit width
+    >>> solution = solve(case)
+    >>> round(solution.problem().flow_rate(solution.u), 9)   # -G h^3 / (12 mu) per width
     1.0
     """
     if _is_helical(case):   # before the exact method, which has no rotation

@@ -63,9 +63,3 @@ class Solution:
             self._problem = Problem(self.domain, self.model)
             self._problem.rate_floor = self.rate_floor
         return self._problem
-
-    def summary(self) -> dict:
-        """The dict written to ``summary.json`` (SI units). Transitional: callers should
-        use ``gnflow.solve(case)``, whose :class:`~gnflow.results.Results` holds it."""
-        from ..results import Results  # the one reach-back left; goes with its callers
-        return Results(self).summary()
