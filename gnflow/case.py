@@ -371,15 +371,15 @@ class Case:
                 geometry.shape == "annulus"
                 and (drive.inner_angular_speed or drive.outer_angular_speed))):
             raise CaseError("drive.slip", message=(
-                "drive.slip: wall slip is not yet solved with rotation or with the exact "
-                'method (method = "none"); leave one of them out'))
-        if fluid.regularisation == "none" and not geometry.is_one_dimensional:
-            # the conic solver handles 2-D sections (gnflow.solver.exact.solve_exact), but
-            # the wall stresses of its solution are not yet derived from its own stress
-            # field, so a run could not pass its force-balance check
+                "drive.slip: wall slip is not yet solved with rotation in an annulus "
+                '(helical flow) or with the exact method (method = "none"); leave one of '
+                "them out"))
+        if fluid.regularisation == "none" and geometry.shape == "annulus" and (
+                drive.inner_angular_speed or drive.outer_angular_speed):
+            # the conic program has no in-plane motion (helical flow is solved regularised)
             raise CaseError("fluid.regularisation.method", "none", (
-                "a 1-D section for the exact method (2-D: use the regularised default for "
-                "now)"))
+                "an annulus without inner_angular_speed / outer_angular_speed for the exact "
+                "method (helical flow needs the regularised default)"))
         heat = None
         if "heat" in mapping:
             heat = _parse_heat(_table(mapping, "heat"), fluid, _wall_names(geometry))
@@ -442,7 +442,7 @@ class Case:
                                                                        law.length is not None))
                              for name, law in self.drive.slip.items()}
         if not self.geometry.is_axial:
-            drive = {k: v for k, v in drive.items() if "angular" in k}
+            drive = {k: v for k, v in drive.items() if "angular" in k or k == "slip"}
         elif not (self.geometry.shape == "annulus" and self.is_helical):
             drive = {k: v for k, v in drive.items() if "angular" not in k}
         out = {"title": self.title, "fluid": fluid, "geometry": geometry, "drive": drive,
@@ -757,14 +757,16 @@ def _parse_mesh_file(table: dict, source: Path | None) -> dict:
 def _parse_drive(table: dict, geometry: GeometrySpec) -> DriveSpec:
     where = "drive"
     if not geometry.is_axial:
-        _check_keys(table, ("inner_angular_speed", "outer_angular_speed"), where)
+        _check_keys(table, ("inner_angular_speed", "outer_angular_speed", "slip"), where)
         inner = _dimensional(table, "inner_angular_speed", where, "angular_speed", 0.0)
         outer = _dimensional(table, "outer_angular_speed", where, "angular_speed", 0.0)
         if inner == outer:
             raise CaseError("drive.inner_angular_speed", table.get("inner_angular_speed", 0),
                             "an angular speed different from drive.outer_angular_speed "
                             "(equal speeds give rigid rotation, no shear)")
-        return DriveSpec(inner_angular_speed=inner, outer_angular_speed=outer)
+        # slip of the fluid relative to a cylinder, azimuthal (gnflow.solver.slip)
+        slip = _parse_slip(table["slip"], _wall_names(geometry)) if "slip" in table else {}
+        return DriveSpec(inner_angular_speed=inner, outer_angular_speed=outer, slip=slip)
     rotation = ("inner_angular_speed", "outer_angular_speed")
     if geometry.shape != "annulus":
         for key in rotation:

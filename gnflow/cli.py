@@ -163,7 +163,8 @@ def _axial_rows(summary: dict) -> list[tuple[str, str]]:
          + "; speeds below are magnitudes"),
         ("pressure gradient dp/dz", _fmt(summary["pressure_gradient"], "Pa/m")),
         ("pressure drop per length", _fmt(summary["pressure_drop_per_length"], "Pa/m")
-         + " (along the flow; negative: pressure rises)"),
+         + (" (along the flow)" if summary["pressure_drop_per_length"] >= 0 else
+            " (negative: the pressure rises along the flow, which the moving walls drive)")),
         ("flow rate", _fmt(abs(summary["flow_rate"]), "m^2/s (per unit width)" if per_width
                            else "m^3/s")),
         ("mean velocity", _fmt(summary["mean_velocity"], "m/s")),
@@ -234,6 +235,31 @@ def _dimensionless_rows(summary: dict) -> list[tuple[str, str]]:
     return rows
 
 
+def _heat_slip_rows(summary: dict) -> list[tuple[str, str]]:
+    """Viscous heating and wall slip, when the case has them: the numbers that say how
+    far the flow is from the isothermal, no-slip picture."""
+    rows = []
+    heat = summary.get("heat")
+    if heat and "max_temperature_rise" in heat:
+        rows += [("temperature rise, max", _fmt(heat["max_temperature_rise"], "K")
+                  + f"  (max temperature {_fmt(heat['max_temperature'], 'K')})"),
+                 ("temperature rise, mean", _fmt(heat["mean_temperature_rise"], "K"))]
+        if heat.get("nahme_griffith_number") is not None:
+            rows.append(("Nahme-Griffith number", _fmt(heat["nahme_griffith_number"], "", 4)))
+        if heat.get("brinkman_number") is not None:
+            rows.append(("Brinkman number", _fmt(heat["brinkman_number"], "", 4)))
+    slip = summary.get("slip") or {}
+    mean = summary.get("mean_velocity")
+    for name, wall in slip.items():
+        if not isinstance(wall, dict) or "slip_speed" not in wall:
+            continue
+        text = _fmt(abs(wall["slip_speed"]), "m/s")
+        if mean:
+            text += f"  ({100 * abs(wall['slip_speed']) / mean:.3g} % of the mean velocity)"
+        rows.append((f"slip speed, {name}", text))
+    return rows
+
+
 def format_summary(summary: dict) -> str:
     """The printed summary: key results with units, notes, warnings and assumptions.
 
@@ -256,6 +282,7 @@ def format_summary(summary: dict) -> str:
                      + f" [{r['chosen']}]"))
         if r.get("error_estimate") is not None:
             rows.append(("regularisation error (est.)", f"{100 * r['error_estimate']:.3g} %"))
+    rows += _heat_slip_rows(summary)
     rows += _dimensionless_rows(summary)
     width = max(len(r[0]) for r in rows)
     lines += [f"  {name:<{width}}  {value}" for name, value in rows]

@@ -269,23 +269,48 @@ def _draw_walls(ax, results: Results) -> None:
 
 
 def _map_panels(results: Results, f: dict, vertices: int) -> list[tuple]:
-    """(label, values, logarithmic) of each map; no viscosity map for a Newtonian fluid."""
+    """(label, values, logarithmic[, (u_x, u_y)]) of each map; no viscosity map for a
+    Newtonian fluid. A fourth entry is an in-plane velocity whose streamlines are drawn
+    over the map (helical flow in a 2-D section)."""
     panels = [("axial velocity w [m/s]", f["velocity"][:vertices], False),
               ("shear rate [1/s]", f["shear_rate"][:vertices], False),
               ("shear stress [Pa]", f["shear_stress"][:vertices], False)]
     if results.model.name != "newtonian":
         panels.append(("apparent viscosity [Pa*s]", f["viscosity"][:vertices], True))
-    if "azimuthal_velocity" in f:    # helical flow: the swirl beside the axial speed
+    if "in_plane_velocity" in f:     # helical flow: the motion in the section, with its
+        ux, uy = f["in_plane_velocity"][:, :vertices]                # streamlines drawn over
+        panels.insert(1, ("in-plane speed [m/s]", np.hypot(ux, uy), False, (ux, uy)))
+    elif "azimuthal_velocity" in f:  # helical flow: the swirl beside the axial speed
         panels.insert(1, ("azimuthal velocity [m/s]", f["azimuthal_velocity"][:vertices], False))
     if "temperature" in f:           # viscous heating
         panels.append(("temperature [degC]", f["temperature"][:vertices] - 273.15, False))
     return panels
 
 
+#: points per side of the grid on which in-plane streamlines are traced
+STREAMLINE_GRID = 160
+
+
+def _streamlines(ax, triangulation: Triangulation, ux: np.ndarray, uy: np.ndarray) -> None:
+    """In-plane streamlines over a map: the nodal velocity interpolated linearly onto a
+    regular grid (masked outside the section) and traced by matplotlib."""
+    from matplotlib.tri import LinearTriInterpolator
+
+    x = np.linspace(triangulation.x.min(), triangulation.x.max(), STREAMLINE_GRID)
+    y = np.linspace(triangulation.y.min(), triangulation.y.max(), STREAMLINE_GRID)
+    gx, gy = np.meshgrid(x, y)
+    u = LinearTriInterpolator(triangulation, ux)(gx, gy)
+    v = LinearTriInterpolator(triangulation, uy)(gx, gy)
+    if np.ma.count(u) < 4 or not np.ma.max(np.hypot(u, v)) > 0:
+        return
+    ax.streamplot(x, y, u, v, color="w", linewidth=0.6, density=1.4, arrowsize=0.8)
+
+
 def section_maps(results: "Results | Solution", path: Path) -> None:
     """Filled contour maps over a 2-D section: velocity, shear rate, shear stress and
-    (non-Newtonian fluids) apparent viscosity; walls in black, singular corners marked,
-    the yield surface (yield-stress fluids) dashed white. Wide sections are stacked."""
+    (non-Newtonian fluids) apparent viscosity, and in helical flow the in-plane speed with
+    its streamlines beside the axial speed; walls in black, singular corners marked, the
+    yield surface (yield-stress fluids) dashed white. Wide sections are stacked."""
     results = as_results(results)
     mesh = results.domain.basis.mesh
     f = results.fields
@@ -311,7 +336,7 @@ def section_maps(results: "Results | Solution", path: Path) -> None:
     stress = f["shear_stress"][:vertices]
     plug = (stress < results.model.yield_stress if results.model.is_yield_stress
             else np.zeros(vertices, bool))
-    for index, (ax, (label, values, logarithmic)) in enumerate(zip(axes, panels)):
+    for index, (ax, (label, values, logarithmic, *arrows)) in enumerate(zip(axes, panels)):
         if index == 0 or logarithmic:
             # the velocity is bounded, and a log scale holds the viscosity's range; in a
             # plug the viscosity is the regularisation's artefact and sets no limit
@@ -343,6 +368,9 @@ def section_maps(results: "Results | Solution", path: Path) -> None:
         if results.model.is_yield_stress and np.ptp(stress) > 0:
             ax.tricontour(triangulation, stress, levels=[results.model.yield_stress],
                           colors="w", linestyles="--", linewidths=0.9)
+        if arrows:
+            _streamlines(ax, triangulation, *arrows[0])
+            ax.set_title("white: in-plane streamlines", fontsize=7, color="0.3")
         _draw_walls(ax, results)
         for corner in corners:
             ax.plot(corner["x"] * 1e3, corner["y"] * 1e3, "x", color="tab:red", ms=6, mew=1.5)
@@ -359,6 +387,9 @@ def section_maps(results: "Results | Solution", path: Path) -> None:
         notes.append("white dashed: yield surface (stress = yield stress)")
     if corners:
         notes.append("red x: singular corner (the shear rate grows without bound there)")
+    if any(len(panel) > 3 for panel in panels):
+        notes.append("in-plane speed: white streamlines of the flow in the section, arrows "
+                     "its direction (axial speed w normal to the page)")
     if notes:
         fig.supxlabel("; ".join(notes), fontsize=7, color="0.3")
     fig.suptitle(_title(results), fontsize=10)

@@ -68,6 +68,22 @@ ASSUMPTIONS = ("laminar, isothermal, steady, fully developed flow of an incompre
                "generalized Newtonian fluid; no slip at the walls unless a wall speed is given; "
                "the viscosity model is only as good as its fit to the user's measurements")
 
+
+def assumptions_for(case) -> str:
+    """:data:`ASSUMPTIONS` as they hold for this case: a heated case is not isothermal
+    and a case with slip laws does not stick to its walls."""
+    heated = getattr(case, "heat", None) is not None
+    slip = sorted(getattr(case.drive, "slip", None) or {})
+    thermal = ("non-isothermal: viscous heating balanced by conduction to the walls (no "
+               "axial convection, constant conductivity), viscosity from the temperature law"
+               if heated else "isothermal")
+    walls = (f"wall slip by the given laws at: {', '.join(slip)} (slip laws are material- "
+             "and surface-specific: measured, not predicted), no slip at any other wall"
+             if slip else "no slip at the walls unless a wall speed is given")
+    return (f"laminar, {thermal}, steady, fully developed flow of an incompressible "
+            f"generalized Newtonian fluid; {walls}; the viscosity model is only as good as "
+            "its fit to the user's measurements")
+
 #: the closing line of every command that prints design numbers
 CAUTION = ("results must be checked against the applicable local codes and standards and "
            "by a licensed or registered engineer before they are used in a design")
@@ -142,6 +158,9 @@ def fields(solution: Solution) -> dict[str, np.ndarray]:
         rate = np.maximum(rate, solution.rate_floor)
         viscosity = _viscosity(solution, np.maximum(rate, 1e-300))
     stress = stress_profile_1d(solution, x[0]) if domain.dimension == 1 else viscosity * rate
+    own_stress = getattr(solution, "stress_magnitude", None)   # the exact method's own
+    if own_stress is not None and domain.dimension == 2:
+        stress = np.asarray(own_stress)
     out = {"x": x, "shear_rate": rate, "viscosity": viscosity, "shear_stress": stress}
     if solution.model.is_yield_stress:
         out["unyielded"] = (out["shear_stress"] < solution.model.yield_stress).astype(float)
@@ -221,11 +240,13 @@ def wall_stresses(solution: Solution) -> dict[str, float]:
         # viscosity at one temperature everywhere
         return {name: float(solution.heat["wall_shear_stress"][name])
                 for name in solution.domain.walls}
-    problem = solution.problem()
-    # with slip the residual vanishes at slipping walls (the slip term balances the
-    # viscous flux there): the reaction leaves that term out
-    balance = getattr(problem, "reaction", problem.residual)
-    reaction = balance(solution.u, solution.pressure_gradient)
+    reaction = getattr(solution, "reaction", None)   # the exact method's own residual
+    if reaction is None:
+        problem = solution.problem()
+        # with slip the residual vanishes at slipping walls (the slip term balances the
+        # viscous flux there): the reaction leaves that term out
+        balance = getattr(problem, "reaction", problem.residual)
+        reaction = balance(solution.u, solution.pressure_gradient)
     out = {}
     for name, wall in solution.domain.walls.items():
         force = float(np.sum(reaction[wall.dofs]))  # per unit length, on the fluid
@@ -270,6 +291,8 @@ def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
     corners = singular_points(solution)
     radius = singular_exclusion_radius(solution) if corners else 0.0
     laws = getattr(solution.case.drive, "slip", None) or {}
+    reaction = getattr(solution, "reaction", None)
+    flux = None if reaction is None else consistent_wall_flux(solution, reaction)
     out = {}
     for name in domain.walls:
         facets = _chained(mesh, domain.extra["wall_facets"][name])
@@ -286,6 +309,8 @@ def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
         viscosity = _viscosity(solution, np.sqrt(rate_squared + solution.rate_floor ** 2),
                                temperature)
         stress = -viscosity * normal_derivative
+        if flux is not None:
+            stress = -np.asarray(facet_basis.interpolate(flux))
         slip = np.zeros_like(stress)
         if name in laws:
             slip = np.asarray(facet_basis.interpolate(solution.u)) - domain.walls[name].value
@@ -305,6 +330,23 @@ def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
                      "shear_rate": rate.ravel()[order], "weight": facet_basis.dx.ravel()[order],
                      "near_singular_corner": near, "slip_speed": slip.ravel()[order]}
     return out
+
+
+def consistent_wall_flux(solution: Solution, reaction: np.ndarray) -> np.ndarray:
+    """The flux ``eta du/dn`` along the walls (Pa, outward normal) as a field on the
+    walls' dofs whose moments are the reaction: ``int_walls sigma phi_i ds = R_i`` for
+    every wall dof (the consistent boundary flux). Its integral over the walls is the
+    reaction's sum exactly, so wall drag and the force balance agree with it. Used for
+    solutions that carry their own ``reaction`` (the exact method, whose model is not
+    the one its stresses follow)."""
+    domain = solution.domain
+    basis = domain.basis
+    facets = np.concatenate([np.asarray(f) for f in domain.extra["wall_facets"].values()])
+    mass = asm(_mass, FacetBasis(basis.mesh, basis.elem, facets=facets)).tocsr()
+    dofs = domain.wall_dofs
+    sigma = np.zeros(basis.N)
+    sigma[dofs] = spla.spsolve(mass[dofs][:, dofs].tocsc(), np.asarray(reaction)[dofs])
+    return sigma
 
 
 def _in_plane_strain_squared(solution: HelicalSolution, facet_basis, facets) -> np.ndarray:
@@ -382,8 +424,9 @@ def torque_per_length(solution: Solution) -> tuple[float, float]:
         inner, outer = (wall_stresses(solution)[n] * walls[n].perimeter * walls[n].position
                         for n in ("inner", "outer"))
         return sense * inner, abs(inner - outer) / max(abs(inner), 1e-300)
-    problem = solution.problem()
-    reaction = problem.internal_force(solution.u)
+    reaction = getattr(solution, "reaction", None)   # the exact method's own residual
+    if reaction is None:
+        reaction = solution.problem().internal_force(solution.u)
     inner = float(np.sum(reaction[walls["inner"].dofs]))
     outer = float(np.sum(reaction[walls["outer"].dofs]))
     return inner, abs(inner + outer) / max(abs(inner), 1e-300)
@@ -572,7 +615,7 @@ def summarise(solution: Solution, point_fields: dict | None,
         warnings.append(out["message"])
     out["warnings"] = warnings
     out["notes"] = notes
-    out["assumptions"] = ASSUMPTIONS
+    out["assumptions"] = assumptions_for(case)
     out["cautions"] = cautions_for(case)
     out["caution"] = CAUTION
     return out
@@ -840,7 +883,10 @@ def _slip_summary(solution: Solution, out: dict) -> None:
     """Wall slip: per slipping wall, ``slip_speed`` (m/s, the mean speed of the fluid
     relative to the wall along +z), ``wall_shear_stress`` (Pa, signed along +z: the
     stress of the fluid on the wall by the slip law; the summary's ``wall_shear_stress``
-    is the reaction's, equal to it to the solver tolerance) and the ``law`` (SI)."""
+    is the reaction's, equal to it to the solver tolerance) and the ``law`` (SI).
+    Coaxial cylinders: the same along +theta (the sense of a positive angular speed),
+    ``slip_speed = R (omega(R) - Omega_wall)``; negative on the faster cylinder, which
+    the fluid lags."""
     problem = solution.problem()
     slip = getattr(problem, "slip", None)
     if slip is None:   # a solver without slip terms (e.g. helical flow): say so

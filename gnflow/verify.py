@@ -32,7 +32,16 @@ with itself as the finest of three.
 Besides the headline quantity, every study follows the maximum wall shear stress and,
 for yield-stress fluids, the unyielded (plug) area fraction on each level, each with its
 own apparent order and GCI by the same three-grid procedure (no analytic reference is
-used for them).
+used for them). Helical flow (an annulus with a rotating wall, concentric or eccentric)
+follows also the torque per length on each wall, the rotation power and the dissipation
+(:data:`gnflow.solver.coupled.CONVERGENCE_QUANTITIES`); the headline stays the flow rate
+or, with a flow-rate target, the pressure gradient. A concentric helical case of a
+non-Newtonian fluid has no reference here (the axial profile depends on the rotation),
+so it gets the grid convergence index; a Newtonian one decouples and keeps the annulus
+reference. A Newtonian helical case with only the inner wall turning also compares the
+two wall torques with their closed form on every level (:func:`torque_reference`: the
+Couette torque, or between eccentric cylinders
+:func:`gnflow.analytic.eccentric_rotation_newtonian`, after Jeffery 1922).
 
 Round-off. An error or a difference between levels at or below the study's noise floor
 (:func:`noise_floor`: the solver tolerance, and never less than 1000 machine epsilons,
@@ -69,6 +78,8 @@ from .errors import CaseError
 from .export import atomic_directory
 from .results import Results
 from .solver import Solution, solve
+from .solver.coupled import CONVERGENCE_QUANTITIES, HelicalSolution, \
+    helical_convergence_quantities
 
 MIN_LEVELS, MAX_LEVELS = 2, 8
 #: the finest mesh a 1-D study may ask for (cells across the gap)
@@ -113,6 +124,13 @@ class Level:
     value_error: float | None = None  # relative error of ``value`` against the reference
     l2_norm: float | None = None      # |u|_L2 and |u|_H1 of the reference, for relative
     h1_norm: float | None = None      # round-off floors of the field errors
+    #: further quantities of this kind of flow (helical: the torques and powers), key ->
+    #: value, followed like :data:`SECONDARY`
+    secondary: dict = field(default_factory=dict)
+
+    def followed(self, key: str):
+        """The value of a followed (secondary) quantity, or None if not measured."""
+        return self.secondary[key] if key in self.secondary else getattr(self, key, None)
 
 
 @dataclass
@@ -131,9 +149,23 @@ class VerificationResult:
     h1_orders: np.ndarray | None = None
     value_orders: np.ndarray | None = None
     gci: list = field(default_factory=list)   # ThreeGridEstimate or None per level
-    #: the same per level for each of :data:`SECONDARY` that was measured
+    #: the same per level for each of :data:`SECONDARY` (and, in helical flow, of
+    #: :data:`~gnflow.solver.coupled.CONVERGENCE_QUANTITIES`) that was measured
     secondary_gci: dict = field(default_factory=dict)
     noise: float = ROUND_OFF_FLOOR
+    #: closed-form wall torques (key of CONVERGENCE_QUANTITIES -> N m/m) and their source
+    torque_reference: dict = field(default_factory=dict)
+    torque_reference_note: str = ""
+
+    def torque_errors(self) -> dict[str, tuple[list, np.ndarray]]:
+        """Per wall torque with a closed form: the relative error of each level and the
+        observed orders between levels."""
+        h = [lv.h for lv in self.levels]
+        out = {}
+        for key, exact in self.torque_reference.items():
+            errors = [abs(lv.followed(key) - exact) / abs(exact) for lv in self.levels]
+            out[key] = (errors, observed_orders(h, errors, self.noise))
+        return out
 
     def round_off(self, error, scale=1.0) -> bool:
         """Whether an error (relative to ``scale``) is at the study's noise floor."""
@@ -271,6 +303,8 @@ def reference_for(case: Case, model):
                                      regularised=regularised)
     if d.flow_rate is not None or not d.pressure_gradient and not d.wall_speed:
         return None
+    if _rotating_annulus(case) and model.name != "newtonian":
+        return None     # helical: the axial profile depends on the rotation
     speeds = d.wall_speed
     G = d.pressure_gradient or 0.0
     if g.shape == "slit":
@@ -283,6 +317,35 @@ def reference_for(case: Case, model):
                                      speeds.get("inner", 0.0), speeds.get("outer", 0.0),
                                      regularised=regularised)
     return None
+
+
+def torque_reference(case: Case) -> tuple[dict, str] | None:
+    """Closed-form wall torques of a Newtonian helical case whose outer wall is at rest
+    (the motions decouple, so any axial drive may come with it), or ``None``."""
+    g, d, model = case.geometry, case.drive, case.fluid.model
+    if (g.shape != "annulus" or model.name != "newtonian" or not d.inner_angular_speed
+            or d.outer_angular_speed):
+        return None
+    mu = model.viscosity_value
+    if g.eccentricity == 0.0:
+        torque = analytic.coaxial_newtonian(g.inner_radius, g.outer_radius, mu,
+                                            d.inner_angular_speed).torque_per_length
+        return ({"inner_torque_per_length": torque, "outer_torque_per_length": -torque},
+                "Couette torque, gnflow.analytic.coaxial_newtonian")
+    if g.eccentricity < 1e-3:
+        return None         # below the closed form's rounding limit
+    ref = analytic.eccentric_rotation_newtonian(
+        g.inner_radius, g.outer_radius, g.eccentricity * (g.outer_radius - g.inner_radius),
+        mu, d.inner_angular_speed)
+    return ({"inner_torque_per_length": ref.inner_torque_per_length,
+             "outer_torque_per_length": ref.outer_torque_per_length},
+            "closed form between eccentric cylinders, gnflow.analytic."
+            "eccentric_rotation_newtonian (bipolar stream function after Jeffery 1922)")
+
+
+def _rotating_annulus(case: Case) -> bool:
+    return case.geometry.shape == "annulus" and bool(
+        case.drive.inner_angular_speed or case.drive.outer_angular_speed)
 
 
 def flow_rate_reference(case: Case) -> tuple[float, str] | None:
@@ -417,7 +480,9 @@ def run_verification(case: Case, levels: int = 4, ratio: float = 2.0,
                               summary["wall_shear_stress"]["max"],
                               norms.l2 if norms else None, norms.h1 if norms else None,
                               value_error, norms.l2_reference if norms else None,
-                              norms.h1_reference if norms else None))
+                              norms.h1_reference if norms else None,
+                              helical_convergence_quantities(solution)
+                              if isinstance(solution, HelicalSolution) else {}))
         if progress:
             progress(index, levels, cells, "done")
     result = VerificationResult(case, case.mesh.degree, float(ratio), quantity, measured,
@@ -443,9 +508,13 @@ def run_verification(case: Case, levels: int = 4, ratio: float = 2.0,
             h, [lv.h1_error / max(lv.h1_norm, 1e-300) for lv in measured], noise)
         result.value_orders = observed_orders(h, [lv.value_error for lv in measured], noise)
     result.gci = three_grid_estimates(h, [lv.value for lv in measured], noise)
-    for key in SECONDARY:
-        values = [getattr(lv, key) for lv in measured]
-        if all(v is not None for v in values):
+    torques = torque_reference(case) if use_reference else None
+    if torques is not None and all(key in lv.secondary for lv in measured
+                                   for key in torques[0]):
+        result.torque_reference, result.torque_reference_note = torques
+    for key in list(SECONDARY) + list(CONVERGENCE_QUANTITIES):
+        values = [lv.followed(key) for lv in measured]
+        if all(v is not None and math.isfinite(v) for v in values):
             result.secondary_gci[key] = three_grid_estimates(h, values, noise)
     return result
 
@@ -546,7 +615,7 @@ def csv_rows(result: VerificationResult) -> tuple[list[str], list[list[str]]]:
         else:
             row += _estimate_cells(result.gci[i])
         for key, estimates in result.secondary_gci.items():
-            row += [_cell(getattr(lv, key))] + _estimate_cells(estimates[i])[1:]
+            row += [_cell(lv.followed(key))] + _estimate_cells(estimates[i])[1:]
         rows.append(row)
     return header, rows
 
@@ -584,20 +653,52 @@ def format_table(result: VerificationResult) -> str:
             cols += _estimate_cells(result.gci[i], text=True)
         lines.append(cols)
     out = _aligned(head, lines)
-    if result.secondary_gci:
+    keys = list(result.secondary_gci)
+    if keys:
+        out += ("\nalso followed on every level (three-grid apparent order and GCI, "
+                "Celik et al. 2008):")
+    for start in range(0, len(keys), SECONDARY_PER_TABLE):   # tables that fit a terminal
         head = ["level"]
-        for key in result.secondary_gci:
-            head += [SECONDARY[key] + (" [Pa]" if key == "max_wall_shear_stress" else ""),
-                     "app. order", "GCI"]
+        for key in keys[start:start + SECONDARY_PER_TABLE]:
+            head += [followed_label(key), "app. order", "GCI"]
         lines = []
         for i, lv in enumerate(result.levels):
             cols = [str(lv.level)]
-            for key, estimates in result.secondary_gci.items():
-                cols += [f"{getattr(lv, key):.6g}"] + _estimate_cells(estimates[i], True)[1:]
+            for key in keys[start:start + SECONDARY_PER_TABLE]:
+                cols += [f"{lv.followed(key):.6g}"] + _estimate_cells(
+                    result.secondary_gci[key][i], True)[1:]
             lines.append(cols)
-        out += ("\nalso followed on every level (three-grid apparent order and GCI, "
-                "Celik et al. 2008):\n" + _aligned(head, lines))
+        out += "\n" + _aligned(head, lines)
+    if result.torque_reference:
+        out += "\n" + _torque_table(result)
     return out
+
+
+def _torque_table(result: VerificationResult) -> str:
+    """The wall torques' relative errors against their closed form, per level."""
+    errors = result.torque_errors()
+    head = ["level"]
+    for key in errors:
+        head += [key.split("_")[0] + " torque error", "order"]
+    lines = []
+    for i, lv in enumerate(result.levels):
+        cols = [str(lv.level)]
+        for values, orders in errors.values():
+            cols += [f"{values[i]:.3e}", _order_cell(result, orders[i], values[i], text=True)]
+        lines.append(cols)
+    return (f"wall torques against the {result.torque_reference_note}:\n"
+            + _aligned(head, lines))
+
+
+#: followed quantities per terminal table (each takes three columns)
+SECONDARY_PER_TABLE = 3
+
+
+def followed_label(key: str) -> str:
+    """The label, with its unit, of a followed (secondary) quantity."""
+    if key in CONVERGENCE_QUANTITIES:
+        return CONVERGENCE_QUANTITIES[key]
+    return SECONDARY[key] + (" [Pa]" if key == "max_wall_shear_stress" else "")
 
 
 def _error_text(error) -> str:
@@ -709,12 +810,14 @@ def markdown_report(result: VerificationResult, plot_name: str = "convergence.pn
              "* reference: " + (result.reference_note if result.has_reference else
                                 "none; discretisation uncertainty by the three-grid "
                                 "procedure of Celik et al. (2008), safety factor 1.25"),
-             "* also followed: " + ", ".join(SECONDARY[k] for k in result.secondary_gci)
+             "* also followed: " + ", ".join(followed_label(k) for k in result.secondary_gci)
              + ", each with its three-grid apparent order and GCI",
              f"* noise floor {result.noise:.0e} (relative): errors and differences below it "
              f"read \"{ROUND_OFF_CELL}\", converged to round-off, with no order",
              "", "| " + " | ".join(header) + " |", "|" + "---|" * len(header)]
     lines += ["| " + " | ".join(r) + " |" for r in rows]
+    if result.torque_reference:
+        lines += ["", "```", _torque_table(result), "```"]
     lines += ["", interpretation(result), "", f"![convergence plot]({plot_name})", ""]
     lines += [f"Caution: {text}" for text in cautions(case)] + [""]
     if not all(lv.converged for lv in result.levels):

@@ -4,15 +4,18 @@ Each check value names its source. The closed forms come from gnflow.analytic, a
 implementation independent of the finite element path.
 """
 
+import dataclasses
 import math
 
 import numpy as np
 import pytest
 
+import gnflow
 from gnflow import analytic, rheology
-from gnflow.case import Case
+from gnflow.case import Case, load_case
 from gnflow.errors import CaseError
-from gnflow.geometry import build_domain
+from gnflow.geometry import Wall, build_domain
+from gnflow.results import Results
 from gnflow.solver.exact import (augmented_lagrangian_bingham, conic_section,
                                  flow_stop_pressure_gradient, solve_exact)
 
@@ -39,8 +42,8 @@ def flow_rate(solution):
 
 def plug_intervals(solution):
     """1-D: the unyielded points' coordinates, as (first, last) of each run of points."""
-    report = solution.regularisation
-    x = report["point_coordinates"][0].ravel()
+    report = solution.yield_points
+    x = report["coordinates"][0].ravel()
     order = np.argsort(x)
     x, plug = x[order], report["unyielded"].ravel()[order]
     runs, start = [], None
@@ -169,6 +172,20 @@ def test_pipe_matches_buckingham_reiner_with_its_plug():
     assert solution.regularisation["stopping_ratio"] == pytest.approx(5.3 / 2.0)
 
 
+def test_pipe_summary_takes_the_exact_solution_wall_stress():
+    """The summary of a 1-D exact run: wall stress |G| R / 2 by statics, wall rate
+    (tau_w - tau_y) / mu_p from Bingham's law, the equilibrated plug edge at 2 tau_y / |G|
+    (Buckingham 1921 / Reiner 1926), force balance to the solver tolerance."""
+    case = Case.from_dict({"fluid": {**BINGHAM, "regularisation": {"method": "none"}},
+                           "geometry": {"shape": "pipe", "radius": 1.0},
+                           "drive": {"pressure_gradient": -5.3}})
+    summary = gnflow.solve(case).summary()
+    assert summary["converged"] and summary["force_balance_error"] < 1e-8
+    assert summary["wall_shear_stress"]["mean"] == pytest.approx(2.65, rel=1e-8)
+    assert summary["wall_shear_rate"]["mean"] == pytest.approx(1.65, rel=1e-8)
+    assert summary["plugs"][0][1] == pytest.approx(2 / 5.3, rel=1e-8)
+
+
 def test_slit_matches_the_exact_plug():
     G = -2.6
     solution = solve_exact(make_case("slit", {"gap": 2.0}, {"pressure_gradient": G}, 40))
@@ -264,3 +281,162 @@ def test_exact_method_needs_a_yield_stress_model():
                      fluid={"model": "newtonian", "viscosity": 1.0})
     with pytest.raises(CaseError, match="fluid.regularisation.method"):
         solve_exact(case)
+
+
+# ------------------------------------------------- 2-D sections: closed forms and walls
+
+def cell_size(domain):
+    """The longest edge of the section's mesh (m)."""
+    mesh = domain.basis.mesh
+    ends = mesh.p[:, mesh.facets]
+    return float(np.max(np.linalg.norm(ends[:, 0] - ends[:, 1], axis=0)))
+
+
+def drawn_circle(cells, G, fluid=None):
+    return Case.from_dict({
+        "fluid": {**(fluid or BINGHAM), "regularisation": {"method": "none"}},
+        "geometry": {"shape": "polygon", "vertices": [[1.0, 0.0], [-1.0, 0.0]],
+                     "arcs": [{"edge": 0, "radius": 1.0}, {"edge": 1, "radius": 1.0}]},
+        "drive": {"pressure_gradient": G}, "mesh": {"cells": cells, "degree": 2}})
+
+
+def test_pipe_meshed_in_two_dimensions_matches_buckingham_reiner():
+    G = -5.3
+    results = gnflow.solve(drawn_circle(16, G))
+    summary = results.summary()
+    reference = analytic.pipe_bingham(1.0, 1.0, 1.0, G)    # Buckingham (1921) / Reiner
+    assert summary["converged"]
+    # measured 1.2e-5 at 16 cells, 4.0e-6 at 32 (the kink at the yield surface)
+    assert summary["flow_rate"] == pytest.approx(reference.flow_rate, rel=5e-5)
+    # the exact solution's own wall stress: |G| R / 2 by statics, and the force balance
+    assert summary["wall_shear_stress"]["per_wall"]["wall"] == pytest.approx(2.65, rel=1e-5)
+    assert summary["force_balance_error"] < 1e-9
+    # Bingham at the wall: rate = (tau_w - tau_y) / mu_p = 1.65 1/s (the FE normal derivative)
+    assert summary["wall_shear_rate"]["mean"] == pytest.approx(1.65, rel=2e-3)
+    # the discrete plug is a union of whole cells (a P2 gradient is linear per cell: it
+    # vanishes on a whole cell or on a line at most), so its boundary lies within about a
+    # cell of the exact one and converges at first order in the cell size (measured
+    # plug edge 0.291, 0.329, 0.341 at 8, 16, 32 cells against 0.377; here inside it)
+    plug_radius, h = reference.plugs[0][1], cell_size(results.domain)
+    x = results.yield_points["coordinates"]
+    radius = np.hypot(x[0], x[1]).ravel()
+    unyielded = results.yield_points["unyielded"].ravel()
+    assert radius[unyielded].max() < plug_radius + h
+    assert radius[~unyielded].min() > plug_radius - h
+    assert (plug_radius - h) ** 2 < summary["unyielded_fraction"] < plug_radius ** 2
+
+
+def slit_band(gap, width, cells, G):
+    """A band of the plane slit meshed in 2-D: a rectangle whose sides are left free
+    (zero flux, the slit's symmetry), walls at the bottom and the top only."""
+    case = make_case("rectangle", {"width": width, "height": gap}, {"pressure_gradient": G},
+                     cells)
+    domain = build_domain(case)
+    facets = domain.extra["wall_facets"]
+    walls = {name: Wall(name, domain.basis.get_dofs(facets[name]).all(), 0.0, width)
+             for name in ("bottom", "top")}
+    band = dataclasses.replace(domain, shape="slit band", walls=walls, extra={
+        **domain.extra, "wall_facets": {n: facets[n] for n in walls}, "singular_points": []})
+    return case, band
+
+
+def test_slit_band_meshed_in_two_dimensions_matches_the_exact_plug():
+    G, gap, width = -2.6, 2.0, 0.5
+    case, band = slit_band(gap, width, 5, G)
+    results = Results(solve_exact(case, domain=band))
+    summary = results.summary()
+    reference = analytic.slit_bingham(gap, 1.0, 1.0, G)      # plane Buckingham-Reiner
+    (low, high), = reference.plugs
+    assert summary["converged"]
+    assert summary["flow_rate"] == pytest.approx(width * reference.flow_rate, rel=1e-3)
+    for name in ("bottom", "top"):   # |G| h / 2 on each wall
+        assert summary["wall_shear_stress"]["per_wall"][name] == pytest.approx(2.6, rel=1e-6)
+    assert summary["force_balance_error"] < 1e-9
+    y = results.yield_points["coordinates"][1].ravel()
+    unyielded = results.yield_points["unyielded"].ravel()
+    h = cell_size(band)
+    # whole cells of the structured mesh (cell rows 0.1 high): measured 0.608 and 1.392
+    assert np.all((y[unyielded] > low - h) & (y[unyielded] < high + h))
+    assert not np.any(~unyielded & (y > low + h) & (y < high - h))
+    assert summary["unyielded_fraction"] == pytest.approx((high - low) / gap, abs=2 * h / gap)
+    # the limit load of the band (sides free) is the slit's 2 tau_y / h, from above
+    stop = summary["regularisation"]["stopping_pressure_gradient"]
+    assert 1.0 < stop < 1.0 * (1 + 4 * h / gap)
+
+
+def write_square(tmp_path, ratio, cells=24):
+    path = tmp_path / f"square_{ratio}.toml"
+    path.write_text(f"""
+title = "square duct at {ratio} of the stopping yield stress"
+[fluid]
+model = "bingham"
+yield_stress = {ratio * SQUARE_STOP!r}
+plastic_viscosity = 1.0
+regularisation = {{ method = "none" }}
+[geometry]
+shape = "rectangle"
+width = 1.0
+height = 1.0
+[drive]
+pressure_gradient = -1.0
+[mesh]
+cells = {cells}
+""")
+    return load_case(path)
+
+
+def test_square_duct_case_file_stops_at_the_mosolov_miasnikov_limit(tmp_path):
+    """tau_c = G L / (2 + sqrt(pi)) (Mosolov & Miasnikov 1965): a case file at tau_c
+    reports zero flow and that it does not yield; at 0.97 tau_c it flows (the discrete
+    limit lies above the exact one by about 0.6 / cells, 2.5 % at 24 cells)."""
+    newtonian = 0.035144   # Q of the Newtonian unit square duct, mu = 1 (series)
+    stopped = gnflow.solve(write_square(tmp_path, 1.0)).summary()
+    assert stopped["converged"] and stopped["force_balance_error"] < 1e-6
+    assert abs(stopped["flow_rate"]) < 1e-7 * newtonian
+    assert stopped["unyielded_fraction"] == 1.0
+    assert any("does not yield" in w for w in stopped["warnings"])
+    moving = gnflow.solve(write_square(tmp_path, 0.97)).summary()
+    assert moving["converged"] and moving["force_balance_error"] < 1e-9
+    assert moving["flow_rate"] > 1e-5 * newtonian
+    assert 0 < moving["unyielded_fraction"] < 1
+    assert not any("does not yield" in w for w in moving["warnings"])
+
+
+@pytest.mark.parametrize("shape, geometry, drive, fluid", [
+    ("rectangle", {"width": 1.0, "height": 0.6},
+     {"pressure_gradient": -5.0, "wall_speed": {"top": 0.2}}, BINGHAM),
+    ("annulus", {"inner_radius": 0.3, "outer_radius": 1.0, "eccentricity": 0.5},
+     {"flow_rate": 0.05, "wall_speed": {"inner": 0.05}},
+     {"model": "herschel-bulkley", "yield_stress": 1.0, "consistency": 0.7, "flow_index": 0.5}),
+])
+def test_two_dimensional_exact_runs_balance_forces_and_power(shape, geometry, drive, fluid):
+    case = Case.from_dict({"fluid": {**fluid, "regularisation": {"method": "none"}},
+                           "geometry": {"shape": shape, **geometry}, "drive": drive,
+                           "mesh": {"cells": 8, "degree": 2}})
+    results = gnflow.solve(case)
+    summary = results.summary()
+    assert summary["converged"], summary["message"]
+    assert summary["force_balance_error"] < 1e-9
+    # the along-wall stress is the consistent flux of the same reaction: its integral
+    # is each wall's drag (the summary's per-wall value times the perimeter)
+    walls = results.domain.walls
+    total = sum(float(np.sum(d["shear_stress"] * d["weight"]))
+                for d in results.wall_distributions.values())
+    drag = sum(math.copysign(summary["wall_shear_stress"]["per_wall"][n], 1.0 if
+               summary["wall_shear_stress"]["force_direction"][n] == "+z" else -1.0)
+               * walls[n].perimeter for n in walls)
+    assert total == pytest.approx(drag, rel=1e-12)
+    # the moving walls' work: pressure plus wall power is the exact dissipation integral
+    # (an independent check of the reaction at the moving wall)
+    power = summary["power_per_length"]
+    assert power["walls"] != 0
+    assert power["dissipated"] == pytest.approx(summary["regularisation"]["dissipation"],
+                                                rel=1e-6)
+
+
+def test_exact_method_refuses_rotation():
+    with pytest.raises(CaseError, match="angular_speed"):
+        Case.from_dict({"fluid": {**BINGHAM, "regularisation": {"method": "none"}},
+                        "geometry": {"shape": "annulus", "inner_radius": 0.3,
+                                     "outer_radius": 1.0},
+                        "drive": {"pressure_gradient": -1.0, "inner_angular_speed": 1.0}})

@@ -908,12 +908,13 @@ def _intervals(r: np.ndarray, mask: np.ndarray) -> list[tuple[float, float]]:
     return runs
 
 
-#: the quantities of a helical solution a mesh-convergence study follows (key -> label)
+#: the quantities of a helical solution a mesh-convergence study follows (key -> label
+#: with its unit; all per length of the annulus)
 CONVERGENCE_QUANTITIES = {
-    "inner_torque_per_length": "torque per length on the inner wall",
-    "outer_torque_per_length": "torque per length on the outer wall",
-    "rotational_power_per_length": "rotational power per length",
-    "dissipation_per_length": "dissipation per length",
+    "inner_torque_per_length": "torque on inner wall [N m/m]",
+    "outer_torque_per_length": "torque on outer wall [N m/m]",
+    "rotational_power_per_length": "rotation power [W/m]",
+    "dissipation_per_length": "dissipation [W/m]",
 }
 
 

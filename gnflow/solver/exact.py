@@ -157,6 +157,13 @@ def _settings(tolerance: float) -> clarabel.DefaultSettings:
         setattr(settings, name, tolerance)
     settings.tol_ktratio = max(tolerance, 1e-8)
     settings.max_iter = 200
+    # the KKT factorisation dominates (bench/exact.py). Measured CPU seconds on the square
+    # duct, P2, 58k unknowns, 17 iterations each: 27.6 with clarabel's defaults, 16.9
+    # without iterative refinement (the same iterations, flow rate equal to 10 digits;
+    # refinement repeats solves of an already accurate factor, more of them as the mesh
+    # grows), 14.9 with faer's supernodal factorisation in place of qdldl on top
+    settings.iterative_refinement_enable = False
+    settings.direct_solve_method = "faer"
     return settings
 
 
@@ -361,6 +368,7 @@ class ExactFlow:
     rate: np.ndarray              # shear rate at the yield-term points
     stress_ratio: np.ndarray      # |yield part of the stress| / tau_y at those points (<= 1)
     unyielded: np.ndarray         # bool per point
+    flux: np.ndarray              # (points, dim): weight_p times the stress vector at x_p
 
 
 def read_flow(case: Case, section: ConicSection, program: FlowProgram,
@@ -390,7 +398,57 @@ def read_flow(case: Case, section: ConicSection, program: FlowProgram,
     # each measured on its own scale (the drive's rate scale, the yield stress)
     rate_scale = sc.speed / sc.length * float(np.max(section.rate_factor))
     unyielded = rate / rate_scale < 1.0 - stress_ratio
-    return ExactFlow(u, gradient, rate, stress_ratio, unyielded)
+    # KKT of the u block: P x + q + A'z = 0 with the gradient rows of A equal to
+    # -length B: the cones' duals are the flux the program's own stress exerts,
+    # weight_p sigma_p = -z_g length energy / speed (Bingham: the yield part only, the
+    # viscous part is in P and added by consistent_reaction)
+    flux = -z[:, 1:] * (sc.length * sc.energy / sc.speed)
+    return ExactFlow(u, gradient, rate, stress_ratio, unyielded, flux)
+
+
+def consistent_reaction(case: Case, section: ConicSection, flow: ExactFlow) -> np.ndarray:
+    """The weak-form residual of the exact solution tested with every basis function,
+    walls included: ``R_i = int a s^2 K grad u . grad phi_i`` (Bingham; Herschel-Bulkley:
+    in the cones) ``+ sum_p weight_p sigma_p . grad phi_i(x_p) + G int a phi_i``, the stress
+    ``sigma_p`` taken from the cones' duals (:func:`read_flow`).
+
+    At the optimum it vanishes at the free dofs (to the solver tolerance); at the wall
+    dofs it is the force of the wall on the fluid, the consistent boundary flux. Since
+    the basis functions sum to one, the wall values add up to ``G int a dx`` less the free
+    residual: the force balance holds to the solver tolerance by construction of the
+    optimum, not of this sum.
+    """
+    model, domain = case.fluid.model, section.domain
+    reaction = section.gradient.T @ flow.flux.ravel() + flow.pressure_gradient * section.load
+    if model.flow_index == 1.0:
+        x = np.asarray(domain.basis.global_coordinates())
+        coefficient = domain.area_weight(x) * domain.rate_factor(x) ** 2 * model.consistency
+        plan = AssemblyPlan(domain.basis, section.free)
+        reaction = reaction + plan.force(coefficient * plan.gradient(flow.u))
+    return np.asarray(reaction)
+
+
+def stress_field(case: Case, section: ConicSection, flow: ExactFlow) -> np.ndarray:
+    """The magnitude of the exact solution's shear stress at the dofs (Pa): at each
+    yield-term point ``|tau_y lambda + K gamma^(n-1) s grad u|`` from the cones' duals
+    (in a plug the dual stress, below the yield stress; in the yielded region
+    ``tau_y + K gamma^n``), projected onto the basis in L2. Its level set at the yield
+    stress is the yield surface drawn on section maps."""
+    from skfem import BilinearForm, LinearForm, asm
+    model, domain = case.fluid.model, section.domain
+    basis = domain.basis
+    stress = flow.flux / section.weight[:, None]
+    if model.flow_index == 1.0:
+        grad = (section.gradient @ flow.u).reshape(section.points, section.dim)
+        stress = stress + model.consistency * section.rate_factor[:, None] * grad
+    magnitude = np.linalg.norm(stress, axis=1).reshape(section.elements, section.per_element)
+    points_basis = Basis(basis.mesh, basis.elem,
+                         quadrature=yield_quadrature(section.dim, section.per_element))
+    mass = asm(BilinearForm(lambda u, v, w: u * v), basis).tocsr()
+    load = asm(LinearForm(lambda v, w: w.value * v), points_basis, value=magnitude)
+    from scipy.sparse.linalg import cg
+    values, _ = cg(mass, load, rtol=1e-12, maxiter=500, M=sp.diags(1.0 / mass.diagonal()))
+    return values
 
 
 def _check_model(case: Case) -> None:
@@ -408,9 +466,12 @@ def solve_exact(case: Case, domain: Domain | None = None, cells: int | None = No
 
     Returns a :class:`Solution` whose ``regularisation`` dict holds the exact method's
     results: ``method`` ("none"), ``unyielded_fraction`` (area share of the points where
-    the rate is zero to the solver tolerance), ``unyielded`` (bool per yield-term
-    quadrature point, element-major), ``stopping_ratio`` (|dp/dz| over the section's
-    stopping gradient, axial flows), ``flows`` and the solver's statistics.
+    the rate is zero to the solver tolerance), ``stopping_ratio`` (|dp/dz| over the
+    section's stopping gradient, axial flows), ``flows`` and the solver's statistics. The
+    solution also carries ``yield_points`` (``coordinates`` of the yield-term quadrature
+    points, ``(dim, elements, points)``, and ``unyielded``, bool per point), ``reaction`` (:func:`consistent_reaction`, from which the wall stresses
+    and torques are taken) and, on 2-D sections, ``stress_magnitude``
+    (:func:`stress_field`, the shear stress at the dofs).
     """
     started = time.perf_counter()
     _check_model(case)
@@ -431,13 +492,33 @@ def solve_exact(case: Case, domain: Domain | None = None, cells: int | None = No
     message = (f"interior-point solve {'converged' if converged else 'ended'} "
                f"({result.status}) in {result.iterations} iterations, residual "
                f"{result.residual:.2e}")
-    solution = Solution(case, domain, case.fluid.model, flow.u, flow.pressure_gradient,
-                        converged, result.iterations, result.residual, history, message,
-                        0.0, None, [])
+    solution = Solution(case, domain, apparent_model(case, program.scales), flow.u,
+                        flow.pressure_gradient, converged, result.iterations, result.residual,
+                        history, message, 0.0, None, [])
     solution.regularisation = _exact_report(case, section, flow, result)
+    solution.yield_points = {
+        "coordinates": section.coordinates,
+        "unyielded": flow.unyielded.reshape(section.elements, section.per_element)}
+    # the exact solution's own stresses, which post-processing takes when present: the
+    # solution's model is a regularised stand-in whose residual is not this flow's
+    solution.reaction = consistent_reaction(case, section, flow)
+    if section.dim == 2:
+        solution.stress_magnitude = stress_field(case, section, flow)
     solution.warnings.extend(_exact_warnings(solution.regularisation))
     solution.seconds = time.perf_counter() - started
     return solution
+
+
+def apparent_model(case: Case, scales: Scales):
+    """The model a solution reports its apparent viscosity with (post-processing reads
+    ``viscosity(rate)`` for maps, 1-D wall rates by inverting the flow curve, and the
+    Reynolds number): the case's yield-stress model regularised so sharply that
+    ``1 - exp(-m rate)`` is 1 to round-off at every rate above 1e-10 of the flow's rate
+    scale, i.e. at every rate the interior-point solution tells from zero. The case
+    carries a stand-in exponent of 1 s, whose apparent viscosity would be off wherever
+    the rate is of the order of 1/s."""
+    rate_scale = scales.speed / scales.length
+    return case.fluid.model.with_regularisation(1e12 / rate_scale)
 
 
 def _exact_report(case: Case, section: ConicSection, flow: ExactFlow,
@@ -449,10 +530,12 @@ def _exact_report(case: Case, section: ConicSection, flow: ExactFlow,
         # the weight includes the rate factor r; the area share uses a alone
         area = section.weight / section.rate_factor
         fraction = float(area[flow.unyielded].sum() / area.sum())
+    # plain numbers only (the report goes into summary.json as it is); the point-wise
+    # unyielded set is on the solution as ``yield_points``
     report = {"method": "none",
+              "parameter": None, "unit": None,
+              "chosen": "exact yield-stress flow, no regularisation parameter",
               "unyielded_fraction": fraction,
-              "unyielded": flow.unyielded.reshape(section.elements, section.per_element),
-              "point_coordinates": section.coordinates,
               "unyielded_definition": (
                   "yield-term quadrature points (element by element) where the shear rate, "
                   "relative to the largest, is below 1 - |stress| / yield stress: the side "

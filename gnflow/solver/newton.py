@@ -197,7 +197,12 @@ def initial_state(problem: Problem, case: Case, model: rheology.Model, rate: flo
     # has at that stress, point by point, gives a start far closer than any constant.
     rate_n = newtonian.shear_rate(u)
     stress = reference.viscosity_value * rate_n
-    viscosity = model.viscosity(_rates_at_stress(model, stress, np.maximum(rate_n, 1e-300)))
+    rates = _rates_at_stress(model, stress, np.maximum(rate_n, 1e-300))
+    # at the rate floor, as the problem evaluates it: where the stress vanishes (slit
+    # mid-plane, pipe axis) a power law with n = 0.1 has rates of 1e-35 1/s and viscosities
+    # 30 decades above the wall's, and a linear solve with that coefficient is round-off
+    floor = problem.rate_floor
+    viscosity = model.viscosity(np.sqrt(rates * rates + floor * floor))
     if not np.all(np.isfinite(viscosity)) or not np.all(viscosity > 0):
         return u, gradient
     coefficient = problem.area_weight * problem.rate_factor ** 2 * viscosity

@@ -24,6 +24,20 @@ non-smooth points are regularised, as the bulk yield stress is: the slip yield s
 ``p > 1`` (infinite ``F'`` at zero slip) by a floor on ``|u_s|``; ``eps`` is a small
 fraction of the case's speed scale.
 
+**Coaxial cylinders** (rotational flow, unknown ``omega(r)``). The fluid slips by the
+azimuthal speed ``u_s = R (omega(R) - Omega)`` relative to a cylinder of radius ``R``
+turning at ``Omega``. The balance assembled (:mod:`.assembly`, coefficient
+``a s^2 eta`` with ``a = 2 pi r``, ``s = r``) is
+``int_Ri^Ro 2 pi r^3 eta omega' psi' dr = [2 pi r^3 eta omega' psi]_Ri^Ro``, the weak form
+of ``(2 pi r^2 tau_rtheta)' = 0`` with ``tau_rtheta = eta r omega'``: its boundary terms
+are torques per length times the test function, ``2 pi R^2 t_theta psi(R)``, ``t_theta``
+the wall's azimuthal traction on the fluid. A slipping wall pulls the fluid back by
+``t_theta = -F(u_s)``, so the slip term is ``P R F(R (omega(R) - Omega)) psi(R)`` with
+``P = 2 pi R`` the wall's perimeter and the lever ``R`` (the unknown is an angular speed),
+and its tangent ``P R^2 F'(u_s)``: still a positive diagonal entry, the tangent stays
+symmetric. The 1-D wall terms below carry that lever (1 for axial flow). The start solves
+the statics of the gap (:meth:`SlipProblem._rotational_start`).
+
 Newton starts from the no-slip start with each wall's slip set by its law at the wall
 stress that start exerts (:meth:`SlipProblem.slip_start`), and convergence is measured
 with the viscous force and the slip drag apart (:meth:`SlipProblem.relative_residual`).
@@ -142,6 +156,12 @@ class WallSlip:
                 self._facet_bases[name] = FacetBasis(domain.basis.mesh, domain.basis.elem,
                                                      facets=facets)
 
+    def lever(self, wall) -> float:
+        """The factor from the unknown to the wall-tangential speed: 1 for axial flow
+        (``u`` is the speed), the wall radius ``R`` for rotational flow (``u`` is the
+        angular speed ``omega``; the fluid slips by ``u_s = R (omega(R) - Omega)``)."""
+        return wall.position if self.domain.kind == "rotational" else 1.0
+
     def with_model(self, model) -> WallSlip:
         other = object.__new__(WallSlip)
         other.__dict__.update(self.__dict__)
@@ -157,13 +177,17 @@ class WallSlip:
         for name, law in self.laws.items():
             wall = self.domain.walls[name]
             if self.domain.dimension == 1:
-                slip = u[wall.dofs] - wall.value
+                # a point wall of weight P (perimeter) and lever L: the term is
+                # P L F(L (u - U)), its derivative P L^2 F' (see the module docstring)
+                lever = self.lever(wall)
+                slip = lever * (u[wall.dofs] - wall.value)
                 value, slope = law.stress(slip, self.model, self.smoothing)
                 if secant:
                     slope = law.secant(slip, self.model, self.smoothing)
-                force[wall.dofs] += wall.perimeter * value
+                force[wall.dofs] += wall.perimeter * lever * value
                 matrix = matrix + sp.csr_matrix(
-                    (wall.perimeter * slope, (wall.dofs, wall.dofs)), shape=(n, n))
+                    (wall.perimeter * lever * lever * slope, (wall.dofs, wall.dofs)),
+                    shape=(n, n))
                 continue
             basis = self._facet_bases[name]
             slip = np.asarray(basis.interpolate(u)) - wall.value
@@ -190,29 +214,34 @@ class WallSlip:
         """Slip speeds (all dofs; zero off the slipping walls) at which each wall's slip
         law balances the nodal forces ``reaction`` that a fixed wall would exert. The
         stress at a wall dof is its force over its share of the wall, ``int_wall a v ds``
-        (the slip term adds ``F`` times that share), inverted by the unsmoothed law."""
+        (the slip term adds ``F`` times that share), inverted by the unsmoothed law.
+        Rotational flow: the share is ``P R`` and the slip speed is divided by ``R``
+        (returned as a slip in angular speed)."""
         slip = np.zeros(self.domain.basis.N)
         for name, law in self.laws.items():
             wall = self.domain.walls[name]
+            lever = self.lever(wall)
             if self.domain.dimension == 1:
-                share = np.full(wall.dofs.size, wall.perimeter)
+                share = np.full(wall.dofs.size, wall.perimeter * lever)
             else:
                 basis = self._facet_bases[name]
                 ones = np.ones_like(np.asarray(basis.interpolate(np.zeros(basis.N))))
                 share = asm(_slip_force, basis, coefficient=ones)[wall.dofs]
             stress = -reaction[wall.dofs] / share
             speed = np.array([law.slip_speed(value, self.model) for value in stress])
-            slip[wall.dofs] = np.sign(stress) * speed
+            slip[wall.dofs] = np.sign(stress) * speed / lever
         return slip
 
     def wall_stress(self, u) -> dict[str, float]:
-        """Mean shear stress each slipping wall exerts on the fluid, signed along +z
-        like :func:`gnflow.post.wall_stresses` (the force the fluid puts on the wall)."""
+        """Mean shear stress of the fluid on each slipping wall by its slip law (Pa),
+        signed along +z (rotational flow: along +theta, the sense of a positive angular
+        speed), like the slip speed: a fluid faster than the wall drags it forward."""
         out = {}
         for name, law in self.laws.items():
             wall = self.domain.walls[name]
             if self.domain.dimension == 1:
-                value, _ = law.stress(u[wall.dofs] - wall.value, self.model, self.smoothing)
+                slip = self.lever(wall) * (u[wall.dofs] - wall.value)
+                value, _ = law.stress(slip, self.model, self.smoothing)
                 out[name] = float(np.sum(value))
             else:
                 basis = self._facet_bases[name]
@@ -222,12 +251,13 @@ class WallSlip:
         return out
 
     def slip_speed(self, u) -> dict[str, float]:
-        """Mean slip speed along each slipping wall (m/s, signed along +z)."""
+        """Mean slip speed along each slipping wall (m/s, signed along +z; rotational
+        flow: ``R (omega(R) - Omega)``, along +theta)."""
         out = {}
         for name in self.laws:
             wall = self.domain.walls[name]
             if self.domain.dimension == 1:
-                out[name] = float(np.mean(u[wall.dofs]) - wall.value)
+                out[name] = float(self.lever(wall) * (np.mean(u[wall.dofs]) - wall.value))
             else:
                 basis = self._facet_bases[name]
                 slip = np.asarray(basis.interpolate(u)) - wall.value
@@ -297,6 +327,17 @@ class SlipProblem(Problem):
         slip term's own stiffness is up to ``tau_s / eps`` on a wall held by a slip yield
         stress, an artefact of the smoothing that would shrink that wall's share of the
         scale (measured: 170 times) and make the measure depend on ``SLIP_SMOOTHING``.
+
+        At a slipping wall's dofs the residual is measured by the viscous force of the
+        correction it calls for, ``r_i K_i / (K_i + S_i)`` (``K_i`` the viscous diagonal,
+        ``S_i`` the slip term's stiffness, the row sum of its tangent). On a free wall
+        ``S_i`` is small and nothing changes; on a wall held by a slip yield stress
+        ``S_i ~ P tau_s / eps`` is up to 1e6 times ``K_i``, and the wall's speed, a float
+        near the wall speed ``U``, only resolves the slip to ``ulp(U)``: a residual floor
+        ``S_i ulp(U)`` of 3e-9 (coaxial cylinders, the inner one at 1 rev/s held) and 5e-8
+        (a slit's top wall at 5 mm/s held), above the tolerance however many iterations
+        (100 measured), although that wall's speed was right to round-off. A wall at rest
+        (``U = 0``) has no such floor, so pipes and slits with fixed walls are unchanged.
         """
         gradient, coefficient, _ = self._coefficients(u, False)
         viscous = self.plan.force(coefficient * gradient)
@@ -304,7 +345,12 @@ class SlipProblem(Problem):
         diagonal = self.plan.diagonal(coefficient)
         # weights scaled so that the stiffest dof has weight 1, as in the base class
         weight = np.sqrt(np.max(diagonal[self.free], initial=0.0) / diagonal)
-        residual = (viscous + drag + pressure_gradient * self.load)[self.free] * weight[self.free]
+        imbalance = viscous + drag + pressure_gradient * self.load
+        dofs = self.slip.dofs
+        if dofs.size:
+            stiffness = np.asarray(abs(self._wall().tangent(u)[dofs]).sum(axis=1)).ravel()
+            imbalance[dofs] *= diagonal[dofs] / (diagonal[dofs] + stiffness)
+        residual = imbalance[self.free] * weight[self.free]
         scale = max(_norm(viscous * weight), _norm(drag * weight),
                     _norm(pressure_gradient * self.load * weight))
         if scale == 0.0:
@@ -353,12 +399,78 @@ class SlipProblem(Problem):
         slip flow is the no-slip flow plus the slip speed.
         """
         u, gradient = start
+        if self.domain.kind == "rotational":
+            rotational = self._rotational_start(u)
+            if rotational is not None:
+                return rotational
         shifted = u.copy()
         slip = self._wall().slip_at_reaction(self.reaction(u, gradient))
         shifted[self.slip.dofs] = (self._wall_speeds + slip)[self.slip.dofs]
         coefficient = super().frozen_coefficient(u)
         self._frozen_state = shifted
         return picard_step(self, shifted, gradient, target, coefficient)
+
+    def _rotational_start(self, u):
+        """Coaxial cylinders: the start from statics, or None if the torque is not found.
+
+        The torque per length ``M`` is the same on every cylinder ``r``, slip or not, so
+        ``|tau| = M / (2 pi r^2)`` and the speed difference the cylinders impose is shared
+        by the bulk, ``int rate(|tau|) / r dr``, and the slip of each slipping wall,
+        ``u_s(|tau(R)|) / R``: one increasing function of ``M``, whose root gives the wall
+        slips and the viscosity at each quadrature point; one frozen solve with those
+        spreads them into the gap. (The no-slip start's torque, which the axial walls use,
+        overestimates the stress here: with it, a Bingham gap took 70-94 Newton iterations
+        and three continuation stages, against 3 without slip.)
+        """
+        from scipy.optimize import brentq
+
+        from .newton import _rates_at_stress
+        wall, model = self._wall(), self.model
+        walls = self.domain.walls
+        difference = walls["inner"].value - walls["outer"].value
+        radius = self.rate_factor                       # r at the quadrature points
+        weight = self.plan.dx / radius                  # d(omega) = rate / r dr
+        torque = abs(float(np.sum(self.reaction(u, 0.0)[walls["inner"].dofs])))
+        guess = np.maximum(self.shear_rate(u), 1e-300)
+        if not (difference != 0 and torque > 0 and math.isfinite(torque)):
+            return None
+
+        def shares(m):
+            stress = m / (2 * math.pi * radius ** 2)
+            rates = _rates_at_stress(model, stress, guess)
+            slips = {name: law.slip_speed(m / (2 * math.pi * walls[name].position ** 2), model)
+                     for name, law in wall.laws.items()}
+            return rates, slips
+
+        def mismatch(log_m):
+            rates, slips = shares(math.exp(log_m))
+            total = float(np.sum(rates * weight)) + sum(
+                speed / walls[name].position for name, speed in slips.items())
+            return math.log(max(total, 1e-300)) - math.log(abs(difference))
+        low = high = math.log(torque)
+        for _ in range(30):
+            if mismatch(high) > 0:
+                break
+            high += math.log(10.0)
+        for _ in range(30):
+            if mismatch(low) < 0:
+                break
+            low -= math.log(10.0)
+        if not mismatch(low) < 0 < mismatch(high):
+            return None
+        rates, slips = shares(math.exp(brentq(mismatch, low, high, xtol=1e-6)))
+        viscosity = model.viscosity(np.maximum(rates, self.rate_floor))
+        if not np.all(np.isfinite(viscosity)) or not np.all(viscosity > 0):
+            return None
+        sense = math.copysign(1.0, difference)
+        shifted = u.copy()
+        for name, speed in slips.items():
+            # the fluid lags the faster cylinder and leads the slower one
+            lag = -sense if name == "inner" else sense
+            shifted[walls[name].dofs] = walls[name].value + lag * speed / walls[name].position
+        coefficient = self.area_weight * radius ** 2 * viscosity
+        self._frozen_state = shifted
+        return picard_step(self, shifted, 0.0, None, coefficient)
 
     def sibling(self, model) -> SlipProblem:
         other = super().sibling(model)

@@ -1,0 +1,124 @@
+"""Where the time of one solve goes: a profile of ``gnflow.solve`` split into phases.
+
+Issue 16 asks every model to solve within 1.5x of one Newtonian solve. This script shows
+what limits that: it runs one solve under :mod:`cProfile` (the same square duct as
+``bench/sections.py``, or a 1-D case) and charges every function's own time to a phase,
+by the gnflow function it was called from:
+
+* ``viscosity``   the rheology model (apparent viscosity and its derivative);
+* ``assembly``    building residuals and tangent matrices (quadrature loops, sparse sums);
+* ``amg setup``   building the multigrid hierarchy (pyamg);
+* ``cg + cycles`` the preconditioned conjugate gradients and the V-cycles they apply
+                  (smoothing, restriction, prolongation: scipy / numpy kernels);
+* ``direct``      sparse or banded factorisations and their solves;
+* ``sequencing``  interpolating coarse solutions onto finer meshes;
+* ``mesh``        building the mesh and basis (scikit-fem);
+* ``other``       everything else (post-processing of the summary is not included).
+
+Phases are attributed by walking each function's callers up to the first gnflow frame
+with a known role; cProfile's overhead (about 10-30 %) falls on the Python-level loops
+more than on compiled kernels, so read shares, not absolute seconds. The wall time of the
+same solve without the profiler is printed first.
+
+    python bench/profile_solve.py [--cells 200] [--models newtonian,power-law,...]
+    python bench/profile_solve.py --one-d      # a 1-D pipe, 200 solves per model
+"""
+
+from __future__ import annotations
+
+import argparse
+import cProfile
+import pstats
+import time
+
+from sections import FLUIDS, make_case
+
+PHASES = (
+    ("viscosity", ("gnflow/rheology.py",)),
+    ("amg setup", ("_build_hierarchy", "pyamg/aggregation", "pyamg/multilevel.py:__init__",
+                   "smoothed_aggregation")),
+    ("cg + cycles", ("_cg", "_v_cycle", "cycle", "pyamg/relaxation")),
+    ("direct", ("_banded", "_BandFactor", "spsolve", "splu", "factorized", "cholesky",
+                "_band_layout", "solve_banded", "cho_")),
+    ("sequencing", ("sequencing.py",)),
+    ("mesh", ("geometry.py", "drawing.py", "meshfile.py", "skfem/mesh",
+              "skfem/assembly/basis", "skfem/element", "skfem/quadrature")),
+    ("assembly", ("assembly.py", "slip.py")),
+)
+
+
+def phase_of(key, stats: pstats.Stats, depth: int = 0, seen=None) -> str:
+    """The phase of a function: its own if its file or name matches, else its callers'."""
+    filename, _, name = key
+    text = f"{filename}:{name}"
+    for phase, marks in PHASES:
+        if any(mark in text for mark in marks):
+            return phase
+    if depth > 25:
+        return "other"
+    seen = seen or set()
+    callers = stats.stats[key][4]
+    # the caller that spent the most time calling this function decides
+    best = sorted(callers.items(), key=lambda item: -item[1][3])
+    for caller, _ in best:
+        if caller in seen:
+            continue
+        seen.add(caller)
+        phase = phase_of(caller, stats, depth + 1, seen)
+        if phase != "other":
+            return phase
+    return "other"
+
+
+def phases(profile: cProfile.Profile) -> tuple[dict[str, float], float]:
+    stats = pstats.Stats(profile)
+    shares: dict[str, float] = {}
+    total = 0.0
+    for key, (_, _, own, _, _) in stats.stats.items():
+        phase = phase_of(key, stats)
+        shares[phase] = shares.get(phase, 0.0) + own
+        total += own
+    return shares, total
+
+
+def one_d_case(model: str):
+    from gnflow import Case
+    return Case.from_dict({"fluid": FLUIDS[model],
+                           "geometry": {"shape": "pipe", "radius": 0.015},
+                           "drive": {"pressure_gradient": -6000.0}})
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--cells", type=int, default=200, help="cells per side (200: 160k)")
+    parser.add_argument("--models", default=",".join(FLUIDS))
+    parser.add_argument("--one-d", action="store_true", help="profile 1-D pipe solves")
+    args = parser.parse_args()
+    from gnflow import solve
+
+    names = [p for p, _ in PHASES] + ["other"]
+    header = f"{'model':18s} {'wall s':>7s} {'iter':>5s} " + " ".join(f"{n:>11s}" for n in names)
+    print(("1-D pipe, 200 cells, 200 solves" if args.one_d else
+           f"square duct, P2, {2 * args.cells + 1}^2 unknowns") + "; shares of profiled time")
+    print(header)
+    for model in args.models.split(","):
+        case = one_d_case(model) if args.one_d else make_case(args.cells, model)
+        repeat = 200 if args.one_d else 1
+        solve(case)   # warm caches (imports, quadrature tables)
+        started = time.perf_counter()
+        for _ in range(repeat):
+            solution = solve(case)
+        wall = (time.perf_counter() - started) / repeat
+        profile = cProfile.Profile()
+        profile.enable()
+        for _ in range(repeat):
+            solve(case)
+        profile.disable()
+        shares, total = phases(profile)
+        cells = " ".join(f"{100 * shares.get(n, 0.0) / total:10.1f}%" for n in names)
+        shown = f"{wall * 1e3:6.2f}m" if args.one_d else f"{wall:7.2f}"
+        print(f"{model:18s} {shown:>7s} {solution.iterations:5d} {cells}")
+
+
+if __name__ == "__main__":
+    main()
