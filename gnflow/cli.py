@@ -52,9 +52,20 @@ class _Parser(argparse.ArgumentParser):
                     names += sub._all_names()
         return names
 
+    def _names_in_use(self) -> list[str]:
+        """The names a hint may suggest: those of the subcommand on the command line (the
+        root parser reports its unrecognised arguments), else every name."""
+        for action in self._actions:
+            if isinstance(action, argparse._SubParsersAction):
+                line = getattr(self, "command_line", None) or sys.argv[1:]
+                given = [a for a in line if a in action.choices]
+                if given:
+                    return action.choices[given[0]]._all_names()
+        return self._all_names()
+
     def error(self, message):  # argparse's own errors: exit 2 with one line
         words = re.findall(r"(?:^|\s|')(-{0,2}[A-Za-z][\w-]*)", message.split(":", 1)[-1])
-        known = self._all_names()
+        known = self._names_in_use()
         hints = [difflib.get_close_matches(w, known, n=1, cutoff=0.6) for w in words
                  if w not in known]
         hint = next((h[0] for h in hints if h), None)
@@ -282,6 +293,13 @@ def format_summary(summary: dict) -> str:
                      + f" [{r['chosen']}]"))
         if r.get("error_estimate") is not None:
             rows.append(("regularisation error (est.)", f"{100 * r['error_estimate']:.3g} %"))
+    if "wall_torque_per_length" in summary:   # helical flow: rotation with axial flow
+        for name, value in summary["wall_torque_per_length"].items():
+            rows.append((f"torque per length, {name}", _fmt(value, "N*m/m")
+                         + "  (signed, about the cylinder's axis)"))
+        power = summary.get("power_per_length") or {}
+        if isinstance(power, dict) and power.get("rotation") is not None:
+            rows.append(("rotation power per length", _fmt(power["rotation"], "W/m")))
     rows += _heat_slip_rows(summary)
     rows += _dimensionless_rows(summary)
     width = max(len(r[0]) for r in rows)
@@ -457,6 +475,7 @@ def _demo(args) -> int:
 def main(argv: list[str] | None = None) -> int:
     import warnings
     parser = _build_parser()
+    parser.command_line = list(sys.argv[1:] if argv is None else argv)
     args = parser.parse_args(argv)
     # numerical warnings (overflow in an extreme iterate, deprecations inside libraries)
     # are not messages for the user: every failure they lead to is reported by the

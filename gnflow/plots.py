@@ -363,7 +363,10 @@ def section_maps(results: "Results | Solution", path: Path) -> None:
         if logarithmic and plug.any():
             ax.tricontourf(triangulation, stress, levels=[0.0, results.model.yield_stress],
                            colors="0.8")
-            ax.set_title("grey: plug (its viscosity is an artefact\nof the regularisation)",
+            exact = (getattr(results.solution, "regularisation", None) or {}).get(
+                "method") == "none"
+            ax.set_title("grey: plug (rigid: no finite viscosity)" if exact else
+                         "grey: plug (its viscosity is an artefact\nof the regularisation)",
                          fontsize=7, color="0.3")
         if results.model.is_yield_stress and np.ptp(stress) > 0:
             ax.tricontour(triangulation, stress, levels=[results.model.yield_stress],

@@ -160,7 +160,8 @@ def fields(solution: Solution) -> dict[str, np.ndarray]:
     stress = stress_profile_1d(solution, x[0]) if domain.dimension == 1 else viscosity * rate
     own_stress = getattr(solution, "stress_magnitude", None)   # the exact method's own
     if own_stress is not None and domain.dimension == 2:
-        stress = np.asarray(own_stress)
+        # a magnitude: the L2 projection of the cone duals can undershoot below zero
+        stress = np.maximum(np.asarray(own_stress), 0.0)
     out = {"x": x, "shear_rate": rate, "viscosity": viscosity, "shear_stress": stress}
     if solution.model.is_yield_stress:
         out["unyielded"] = (out["shear_stress"] < solution.model.yield_stress).astype(float)

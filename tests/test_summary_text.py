@@ -54,3 +54,25 @@ def test_slipping_case_names_its_walls_and_prints_the_slip_speed():
     assert abs(abs(speed) - 1e-6 * 200e3 * 5e-3 / 2) < 1e-9
     text = format_summary(summary)
     assert "slip speed, wall" in text and "% of the mean velocity" in text
+
+
+def test_option_hints_come_from_the_subcommand_given(capsys):
+    """`run --to` must not be told about `system-curve --to`: the hint is one of run's."""
+    import pytest
+    from gnflow.cli import main
+    with pytest.raises(SystemExit) as stop:
+        main(["run", "case.toml", "--to", "somewhere"])
+    assert stop.value.code == 2
+    err = capsys.readouterr().err
+    assert "did you mean --out?" in err and "--to?" not in err
+
+
+def test_helical_summary_prints_the_torque_on_each_cylinder():
+    from pathlib import Path
+    example = Path(gnflow.__file__).parent / "examples" / "helical_mud_rotating_string.toml"
+    summary = gnflow.solve(gnflow.load_case(example)).summary()
+    text = format_summary(summary)
+    for name, value in summary["wall_torque_per_length"].items():
+        line = next(row for row in text.splitlines() if f"torque per length, {name}" in row)
+        assert f"{value:.5g}" in line and "N*m/m" in line
+    assert "rotation power per length" in text
