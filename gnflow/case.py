@@ -935,7 +935,7 @@ def _parse_heat(table: dict, fluid: FluidSpec, walls):
     ``b`` (1/K) and ``reference_temperature`` ``T_ref``, the temperature at which the
     fluid's parameters hold.
     """
-    from .solver.heat import HeatSpec, TemperatureShift
+    from .specs import HeatSpec, TemperatureShift
     from .temperature import at_temperature
     where = "heat"
     _check_keys(table, HEAT_KEYS, where)
@@ -1007,7 +1007,7 @@ def _parse_slip(table, walls) -> dict:
     units only for linear slip, e.g. ``"0.2 mm/(s*Pa)"``) with ``exponent`` (default 1);
     ``yield_stress`` (Pa, default 0), the wall stress below which the wall does not slip.
     """
-    from .solver.slip import SlipLaw
+    from .specs import SlipLaw
     if not isinstance(table, dict):
         raise CaseError("drive.slip", table, "a table of walls, e.g. [drive.slip.wall]")
     laws = {}

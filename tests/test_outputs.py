@@ -303,3 +303,20 @@ def test_the_command_line_module_imports_no_heavy_library():
                             cwd=Path(__file__).parent)
     assert result.returncode == 0, result.stderr
     assert result.stdout.strip() == "[]"
+
+
+EXAMPLES = Path(gnflow.__file__).parent / "examples"
+
+
+@pytest.mark.parametrize("name", sorted(p.name for p in EXAMPLES.glob("*.toml")
+                                        if 'shape = "mesh"' not in p.read_text()))
+def test_checking_an_example_imports_no_heavy_library(name):
+    """``gnflow check`` reads and checks a case (drawn sections, heating and slip included)
+    without the finite-element stack or the plotting library: that is what keeps it quick."""
+    code = ("import sys; from gnflow.cli import main; main(['check', '--quiet', sys.argv[1]]);"
+            " print(sorted(m for m in ('skfem', 'scipy', 'matplotlib', 'meshio', 'pint')"
+            " if m in sys.modules))")
+    result = subprocess.run([sys.executable, "-c", code, str(EXAMPLES / name)],
+                            capture_output=True, text=True, cwd=Path(__file__).parent)
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.strip().splitlines()[-1] == "[]"

@@ -49,10 +49,10 @@ import scipy.sparse.linalg as spla
 from skfem import BilinearForm, LinearForm, asm
 from skfem.helpers import dot, grad
 
-from .. import rheology
 from ..errors import CaseError
 from ..geometry import Domain, build_domain
 from .solution import Iteration, Solution
+from ..specs import HeatSpec, TemperatureShift  # noqa: F401  (TemperatureShift re-exported)
 
 #: shear rates are floored smoothly at this fraction of the flow's rate scale, as in the
 #: isothermal solver (gnflow.solver.assembly.RATE_FLOOR), so the tangent stays finite
@@ -65,56 +65,6 @@ MAX_CONTINUATION_STEPS = 120
 #: Newton iterations allowed per continuation step: from the secant predictor a step
 #: converges in 2-8 (measured on the tests' cases); one that needs more is better halved
 STEP_ITERATIONS = 15
-
-
-@dataclass(frozen=True)
-class TemperatureShift:
-    """The viscosity shift factor ``a(T)`` and its logarithmic derivative.
-
-    ``law = "arrhenius"``: ``ln a = E / R (1/T - 1/T_ref)`` (E in J/mol);
-    ``law = "exponential"``: ``ln a = -b (T - T_ref)`` (b in 1/K; Nahme's law).
-
-    >>> law = TemperatureShift("exponential", 0.02, 473.15)
-    >>> round(float(law.shift(np.array(523.15))), 6)   # 50 K hotter: exp(-1)
-    0.367879
-    """
-
-    law: str
-    constant: float            # E (J/mol) or b (1/K)
-    reference_temperature: float
-
-    def log_shift(self, temperature):
-        if self.law == "arrhenius":
-            from ..temperature import GAS_CONSTANT
-            return self.constant / GAS_CONSTANT * (1.0 / temperature
-                                                   - 1.0 / self.reference_temperature)
-        return -self.constant * (temperature - self.reference_temperature)
-
-    def shift(self, temperature):
-        return np.exp(np.clip(self.log_shift(temperature), -700.0, 700.0))
-
-    def log_shift_derivative(self, temperature):
-        """``d ln a / dT`` (1/K)."""
-        if self.law == "arrhenius":
-            from ..temperature import GAS_CONSTANT
-            return -self.constant / (GAS_CONSTANT * temperature ** 2)
-        return np.full(np.shape(temperature), -self.constant)
-
-    def sensitivity(self, temperature: float) -> float:
-        """``beta = -d ln(eta)/dT`` at a temperature (1/K): the Nahme-Griffith coefficient."""
-        return float(-self.log_shift_derivative(np.array(temperature)))
-
-
-@dataclass(frozen=True)
-class HeatSpec:
-    """The ``[heat]`` section in SI: conductivity, wall temperatures, insulated walls and
-    the temperature law of the viscosity."""
-
-    conductivity: float                          # W/(m K)
-    wall_temperature: dict[str, float]           # wall name -> K (walls not insulated)
-    insulated: tuple[str, ...] = ()
-    shift: TemperatureShift | None = None
-    reference_model: rheology.Model | None = None   # the fluid at the law's reference T
 
 
 @dataclass

@@ -46,83 +46,21 @@ with the viscous force and the slip drag apart (:meth:`SlipProblem.relative_resi
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse as sp
 from skfem import BilinearForm, FacetBasis, LinearForm, asm
 
-from .. import rheology
 from .assembly import Problem, _norm
 from .linear import LinearSolver
 from .newton import picard_step
+from ..specs import SlipLaw  # noqa: F401  (re-exported)
 
 #: slip speeds are regularised below this fraction of the case's speed scale. A wall held
 #: by a slip yield stress creeps at about eps ln(tau_s / (tau_s - tau_w)): measured 1e-7 of
 #: the flow rate at 1e-8 (1e-5 at 1e-6, 1e-9 at 1e-10), with the same Newton iterations
 #: from 1e-6 to 1e-10 (the measure of convergence does not see the term's stiffness).
 SLIP_SMOOTHING = 1e-8
-
-
-@dataclass(frozen=True)
-class SlipLaw:
-    """One wall's slip law, in SI.
-
-    ``length`` (m) for Navier slip, or ``coefficient`` (m/s per Pa^exponent) with
-    ``exponent``; ``yield_stress`` (Pa, default 0) below which the wall does not slip.
-
-    >>> law = SlipLaw(coefficient=1e-4, exponent=1.0)
-    >>> law.slip_speed(200.0)      # 1e-4 m/(s Pa) * 200 Pa
-    0.02
-    """
-
-    length: float | None = None
-    coefficient: float | None = None
-    exponent: float = 1.0
-    yield_stress: float = 0.0
-
-    def slip_speed(self, stress: float, model: rheology.Model | None = None) -> float:
-        """Slip speed magnitude at a wall stress magnitude (for checks and reports)."""
-        excess = max(abs(stress) - self.yield_stress, 0.0)
-        if excess == 0.0:
-            return 0.0
-        if self.length is not None:
-            from .scales import invert_flow_curve
-            return self.length * invert_flow_curve(model, excess)
-        return self.coefficient * excess ** self.exponent
-
-    def _magnitude_law(self, magnitude, model, smoothing):
-        """``G(m)`` and ``dG/dm``: the stress magnitude at the slip magnitude ``m``."""
-        if self.length is not None:
-            rate = magnitude / self.length
-            value = model.stress(rate)
-            slope = model.stress_derivative(rate) / self.length
-        else:
-            q = 1.0 / self.exponent
-            value = (magnitude / self.coefficient) ** q
-            slope = q * value / magnitude
-        if self.yield_stress > 0:
-            decay = np.exp(-magnitude / smoothing)
-            value = value + self.yield_stress * (1 - decay)
-            slope = slope + self.yield_stress * decay / smoothing
-        return value, slope
-
-    def secant(self, slip, model, smoothing):
-        """``F(u_s) / u_s``: with ``F = (u_s / m) G(m)`` this is ``G(m) / m`` exactly, and
-        its limit at zero slip is ``G(eps) / eps``, finite and the stiffest value (a wall
-        held by a slip yield stress, or by ``p > 1``, sticks)."""
-        magnitude = np.sqrt(slip * slip + smoothing * smoothing)
-        value, _ = self._magnitude_law(magnitude, model, smoothing)
-        return value / magnitude
-
-    def stress(self, slip, model, smoothing):
-        """``F(u_s) = (u_s / m) G(m)``, ``m = sqrt(u_s^2 + eps^2)``: the stress on the fluid
-        (against the slip), and ``dF/du_s``."""
-        magnitude = np.sqrt(slip * slip + smoothing * smoothing)
-        sign = slip / magnitude
-        value, slope = self._magnitude_law(magnitude, model, smoothing)
-        # dm/du_s = sign and d(sign)/du_s = eps^2 / m^3
-        return sign * value, slope * sign * sign + value * smoothing * smoothing / magnitude ** 3
 
 
 @BilinearForm
