@@ -264,9 +264,17 @@ def _heat_slip_rows(summary: dict) -> list[tuple[str, str]]:
     for name, wall in slip.items():
         if not isinstance(wall, dict) or "slip_speed" not in wall:
             continue
-        text = _fmt(abs(wall["slip_speed"]), "m/s")
+        speed = wall["slip_speed"]
+        text = _fmt(abs(speed), "m/s")
         if mean:
-            text += f"  ({100 * abs(wall['slip_speed']) / mean:.3g} % of the mean velocity)"
+            text += f"  ({100 * abs(speed) / mean:.3g} % of the mean velocity)"
+        if "torque_per_length" in summary and speed:   # coaxial: along +theta
+            text += ("; the fluid leads the wall" if speed > 0 else
+                     "; the fluid lags the wall") + " (+theta: a positive angular speed)"
+        elif speed and summary.get("flow_direction") in ("+z", "-z"):
+            along = (speed > 0) == (summary["flow_direction"] == "+z")
+            text += ("; the fluid runs ahead of the wall" if along else
+                     "; the fluid runs behind the wall, against the net flow")
         rows.append((f"slip speed, {name}", text))
     return rows
 

@@ -33,6 +33,7 @@ if TYPE_CHECKING:  # the results type only, for annotations
 
 PLUG_NOTE = ("grey dashed: in the plug the viscosity is\n"
              "an artefact of the regularisation (clipped)")
+PLUG_NOTE_EXACT = "plug: rigid (no finite viscosity), not drawn"
 #: the viscosity axis of a yield-stress profile ends this many times above the largest
 #: viscosity in the yielded region: enough to show the rise toward the plug edge
 PLUG_VISCOSITY_CLIP = 10.0
@@ -153,6 +154,7 @@ def profile_plot(results: "Results | Solution", path: Path) -> None:
         ax.set_xlabel(label)
     axes[0].plot(speed, x, color="tab:blue")
     axes[0].set_xlabel(speed_label)
+    _slip_marks(axes[0], results)
     axes[1].plot(rate, x, color="tab:orange")
     axes[1].set_xlabel("shear rate [1/s]")
     axes[2].plot(stress, x, color="tab:red")
@@ -163,13 +165,15 @@ def profile_plot(results: "Results | Solution", path: Path) -> None:
                         label=f"yield stress {yield_stress:.3g} Pa")
         axes[2].legend(fontsize=7, loc="best")
     if not newtonian:
-        _viscosity_panel(axes[3], x, viscosity, plug)
+        _viscosity_panel(axes[3], x, viscosity, plug, _is_exact(results))
     axes[0].set_ylabel(_position_label(results))
     for ax in axes:
         ax.grid(True, alpha=0.3)
         for start, stop in _runs(plug):
             ax.axhspan(x[start], x[stop - 1], color="0.88", zorder=0)
-    axes[0].set_ylim(x.min(), x.max())
+    # with slip, a margin keeps the slip jump at a wall clear of the frame
+    margin = 0.03 * float(np.ptp(x)) if results.summary().get("slip") else 0.0
+    axes[0].set_ylim(x.min() - margin, x.max() + margin)
     notes = []
     if plug.any():
         notes.append("shaded: unyielded (stress below the yield stress)")
@@ -181,11 +185,48 @@ def profile_plot(results: "Results | Solution", path: Path) -> None:
     _save(fig, path)
 
 
-def _viscosity_panel(ax, x, viscosity, plug) -> None:
-    """Log viscosity; the plug part grey, dashed and clipped (an artefact there)."""
+def _slip_marks(ax, results: Results) -> None:
+    """At each slipping wall (a black line), the wall's own speed (a black tick) joined by
+    a red bar to the fluid's speed there: the slip jump, named with its size."""
+    slip = results.summary().get("slip") or {}
+    rotational = results.domain.kind == "rotational"
+    for name, wall in slip.items():
+        if not isinstance(wall, dict) or "slip_speed" not in wall:
+            continue
+        w = results.domain.walls[name]
+        jump = wall["slip_speed"] / w.position if rotational else wall["slip_speed"]
+        y = w.position * 1e3
+        unit = "rad/s" if rotational else "m/s"
+        ax.plot([w.value, w.value + jump], [y, y], color="tab:red", lw=2.5,
+                solid_capstyle="butt", label=f"slip at {name}: {abs(jump):.3g} {unit}")
+        ax.plot([w.value], [y], marker="|", color="k", ms=12, mew=2)
+        ax.axhline(y, color="k", lw=0.8)    # the wall
+    if slip:
+        ax.legend(fontsize=7, loc="best")
+
+
+def _is_exact(results: Results) -> bool:
+    """Whether the solution is the exact (unregularised) yield-stress one."""
+    return (getattr(results.solution, "regularisation", None) or {}).get("method") == "none"
+
+
+def _viscosity_panel(ax, x, viscosity, plug, exact: bool = False) -> None:
+    """Log viscosity; the plug part grey, dashed and clipped (an artefact there), or,
+    for the exact method, left out (a rigid plug has no finite viscosity)."""
     yielded = ~plug
     shown = viscosity[yielded] if yielded.any() else viscosity
+    shown = shown[np.isfinite(shown) & (shown > 0)]
+    if not shown.size:
+        ax.set_title(PLUG_NOTE_EXACT if exact else PLUG_NOTE, fontsize=7, color="0.35")
+        ax.set_xlabel("apparent viscosity [Pa*s]")
+        return
     low, high = float(shown.min()), float(shown.max())
+    if exact and plug.any():
+        ax.plot(np.where(yielded, viscosity, np.nan), x, color="tab:green")
+        ax.set_title(PLUG_NOTE_EXACT, fontsize=7, color="0.35")
+        _log_axis(ax, *_padded(low, high), which="x")
+        ax.set_xlabel("apparent viscosity [Pa*s]")
+        return
     if plug.any():
         high = min(float(viscosity.max()), PLUG_VISCOSITY_CLIP * high)
     solid = np.where(yielded, viscosity, np.nan)
@@ -363,8 +404,7 @@ def section_maps(results: "Results | Solution", path: Path) -> None:
         if logarithmic and plug.any():
             ax.tricontourf(triangulation, stress, levels=[0.0, results.model.yield_stress],
                            colors="0.8")
-            exact = (getattr(results.solution, "regularisation", None) or {}).get(
-                "method") == "none"
+            exact = _is_exact(results)
             ax.set_title("grey: plug (rigid: no finite viscosity)" if exact else
                          "grey: plug (its viscosity is an artefact\nof the regularisation)",
                          fontsize=7, color="0.3")

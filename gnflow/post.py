@@ -529,7 +529,9 @@ def reynolds_number(solution: Solution, mean_velocity: float, wall_rate: float,
 def flow_start_pressure_gradient(solution: Solution) -> dict | None:
     """The magnitude of the pressure gradient (Pa/m) a yield-stress fluid at rest in the
     section needs to start flowing, with fixed walls; None if walls move or the fluid has
-    no yield stress or a wall turns (helical flow).
+    no yield stress or a wall turns (helical flow). With wall slip on a 1-D section, the
+    force balance of a plug that slides where the slip law's yield stress is below the
+    fluid's (exact); on a 2-D section with slip, the no-slip limit load as an upper bound.
 
     * pipe of radius R: ``2 tau_y / R``; slit of gap h: ``tau_y / (h/2)``; concentric
       annulus: ``2 tau_y / (R_o - R_i)``, exact: the stress ``tau(r) = G r / 2 - C / r``
@@ -549,6 +551,22 @@ def flow_start_pressure_gradient(solution: Solution) -> dict | None:
         return None
     tau_y = model.yield_stress
     g = solution.case.geometry
+    slip = getattr(solution.case.drive, "slip", None) or {}
+    if slip and domain.dimension == 1:
+        # a wall whose slip law (coefficient form) starts below the yield stress lets the
+        # plug slide there first: the limit is the force balance of the rigid plug, each
+        # wall holding at most a_w = min(tau_y, tau_s,w), and the stress between (linear in
+        # y, or G r / 2 - C / r) stays within the yield stress, so it is exact. A Navier
+        # slip length slips only where the fluid yields: a_w = tau_y.
+        def holds(name):
+            law = slip.get(name)
+            if law is None or law.length is not None:
+                return tau_y
+            return min(tau_y, law.yield_stress)
+        value = sum(w.perimeter * holds(n) for n, w in domain.walls.items()) / domain.area
+        return {"value": value, "source": (
+            "force balance of the sliding plug, each wall holding min(tau_y, slip yield "
+            "stress) (exact, with wall slip)")}
     if domain.shape == "pipe":
         return {"value": 2 * tau_y / g.radius, "source": "2 tau_y / R (exact, pipe)"}
     if domain.shape == "slit":
@@ -558,6 +576,10 @@ def flow_start_pressure_gradient(solution: Solution) -> dict | None:
                 "source": "2 tau_y / (R_o - R_i) (exact, concentric annulus)"}
     from .solver.scales import stopping_gradient
     value = stopping_gradient(domain, tau_y)
+    if value and slip:
+        return {"value": value, "source": (
+            "limit load of the section without wall slip: an upper bound, a slipping "
+            "wall lets the plug move at a lower gradient")}
     if value:
         return {"value": value, "source": "limit load of the section"}
     perimeter = sum(w.perimeter for w in domain.walls.values())

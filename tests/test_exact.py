@@ -440,3 +440,24 @@ def test_exact_method_refuses_rotation():
                         "geometry": {"shape": "annulus", "inner_radius": 0.3,
                                      "outer_radius": 1.0},
                         "drive": {"pressure_gradient": -1.0, "inner_angular_speed": 1.0}})
+
+
+def test_profile_plot_of_an_exact_plug_draws_no_viscosity_in_it(monkeypatch, tmp_path):
+    """The exact method's plug is rigid: profile.png says so and draws no viscosity there
+    (the regularised plot greys and clips an artefact instead)."""
+    from gnflow import plots, solve
+    from gnflow.case import Case
+    shown = {}
+    monkeypatch.setattr(plots, "_save", lambda fig, path: shown.setdefault("fig", fig))
+    results = solve(Case.from_dict({
+        "fluid": {"model": "bingham", "yield_stress": 10.0, "plastic_viscosity": 0.1,
+                  "regularisation": {"method": "none"}},
+        "geometry": {"shape": "pipe", "radius": 0.01},
+        "drive": {"pressure_gradient": -4000.0}}))
+    plots.profile_plot(results, tmp_path / "profile.png")
+    panel = shown["fig"].axes[3]
+    assert panel.get_title() == plots.PLUG_NOTE_EXACT
+    plug_radius = 2 * 10.0 / 4000.0 * 1e3            # mm: r_p = 2 tau_y / |G|
+    for line in panel.get_lines():
+        eta, r = np.asarray(line.get_xdata(), float), np.asarray(line.get_ydata(), float)
+        assert not np.any(np.isfinite(eta) & (r < plug_radius * 0.99))

@@ -676,3 +676,66 @@ def test_bad_coaxial_slip_input_is_refused(drive, fluid, fragment):
         Case.from_dict({"fluid": fluid, "geometry": {"shape": "coaxial-cylinders",
                                                      "inner_radius": RI, "outer_radius": RO},
                         "drive": {"inner_angular_speed": 1.0, **drive}})
+
+
+@pytest.mark.parametrize("shape", ["pipe", "slit", "annulus"])
+def test_flow_start_gradient_with_slip_is_the_sliding_plug_balance(shape):
+    """A wall whose slip law starts below the yield stress lets the rigid plug slide: the
+    gradient the material at rest needs is the plug's force balance
+    ``|G| A = sum_w P_w min(tau_y, tau_s,w)`` (statics, derived here), not 2 tau_y / R.
+    Just above it the whole section moves as a plug at the slip speed of the law at the
+    wall stress; just below it, it is reported as not flowing."""
+    from gnflow import solve as run
+    tau_y, tau_s = BINGHAM["yield_stress"], 0.25 * BINGHAM["yield_stress"]
+    law = {"coefficient": 2e-5, "exponent": 1.3, "yield_stress": tau_s}
+    if shape == "annulus":
+        ri, ro = 0.005, 0.01
+        geometry = {"shape": "annulus", "inner_radius": ri, "outer_radius": ro}
+        slip = {"outer": law}                    # the inner wall does not slip
+        start = 2 * (ro * tau_s + ri * tau_y) / (ro ** 2 - ri ** 2)
+    else:
+        size = SIZE[shape]
+        geometry = ({"shape": "pipe", "radius": size} if shape == "pipe"
+                    else {"shape": "slit", "gap": size})
+        slip = {w: law for w in (("wall",) if shape == "pipe" else ("bottom", "top"))}
+        start = 2 * tau_s / size     # pipe: 2 tau_s / R; slit, both walls: 2 tau_s / h
+    for factor, flows in ((1.2, True), (0.8, False)):
+        results = run(Case.from_dict({"fluid": BINGHAM, "geometry": geometry,
+                                      "drive": {"pressure_gradient": -factor * start,
+                                                "slip": slip}}))
+        summary = results.summary()
+        assert summary["converged"], summary["message"]
+        assert summary["flow_start_pressure_gradient"]["value"] == pytest.approx(start, rel=1e-12)
+        assert "sliding plug" in summary["flow_start_pressure_gradient"]["source"]
+        assert summary["yields"] is flows
+        warned = any("does not yield" in w for w in summary["warnings"])
+        assert warned is not flows
+    if shape == "pipe":    # the plug slides at the law's speed at tau_w = 1.2 tau_s
+        expected = law["coefficient"] * (1.2 * tau_s - tau_s) ** law["exponent"]
+        assert summary is not None
+        moving = run(Case.from_dict({"fluid": BINGHAM, "geometry": geometry,
+                                     "drive": {"pressure_gradient": -1.2 * start, "slip": slip}}))
+        assert moving.summary()["slip"]["wall"]["slip_speed"] == pytest.approx(expected, rel=1e-3)
+        assert moving.summary()["mean_velocity"] == pytest.approx(expected, rel=1e-3)
+
+
+def test_profile_plot_draws_the_slip_jump_at_the_slipping_wall(monkeypatch, tmp_path):
+    """profile.png marks the slipping wall's jump, sized as the summary's slip speed."""
+    from gnflow import plots
+    shown = {}
+    monkeypatch.setattr(plots, "_save", lambda fig, path: shown.setdefault("fig", fig))
+    results = solve(Case.from_dict({
+        "fluid": {"model": "power-law", "consistency": 2.0, "flow_index": 0.5},
+        "geometry": {"shape": "slit", "gap": 0.002},
+        "drive": {"pressure_gradient": -5e4, "slip": {"top": {"length": 3e-4}}}}))
+    plots.profile_plot(results, tmp_path / "profile.png")
+    speed = results.summary()["slip"]["top"]["slip_speed"]
+    bars = [line for line in shown["fig"].axes[0].get_lines()
+            if line.get_label().startswith("slip at top")]
+    assert len(bars) == 1
+    (u0, u1), (y0, y1) = bars[0].get_xdata(), bars[0].get_ydata()
+    assert u0 == 0.0 and u1 == pytest.approx(speed, rel=1e-12) and speed > 0.1
+    assert y0 == y1 == pytest.approx(2.0)          # mm: the top wall
+    # the fluid's own speed at the wall is the bar's far end (profile's last point)
+    velocity = results.fields["velocity"][np.argsort(results.fields["x"][0])]
+    assert velocity[-1] == pytest.approx(u1, rel=1e-9)
