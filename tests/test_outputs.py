@@ -320,3 +320,18 @@ def test_checking_an_example_imports_no_heavy_library(name):
                             capture_output=True, text=True, cwd=Path(__file__).parent)
     assert result.returncode == 0, result.stderr
     assert result.stdout.strip().splitlines()[-1] == "[]"
+
+
+def test_corner_nodes_are_shared_between_walls_so_a_symmetric_duct_has_equal_walls():
+    """A Bingham square duct's solution is symmetric under the mesh's mirror symmetries,
+    so its four walls carry the same force (statics: each a quarter of G L^2). The corner
+    nodes' reactions used to go whole to one wall: top and bottom then differed by 2 %."""
+    tau_c = 1 / (2 + math.sqrt(math.pi))          # Mosolov & Miasnikov (1965) stopping value
+    results = gnflow.solve(gnflow.case.Case.from_dict({
+        "fluid": {"model": "bingham", "yield_stress": 0.5 * tau_c, "plastic_viscosity": 1.0},
+        "geometry": {"shape": "rectangle", "width": 1.0, "height": 1.0},
+        "drive": {"pressure_gradient": -1.0}, "mesh": {"cells": 16}}))
+    per_wall = results.summary()["wall_shear_stress"]["per_wall"]
+    assert set(per_wall) == {"bottom", "left", "right", "top"}
+    for value in per_wall.values():
+        assert value == pytest.approx(0.25, rel=1e-9)

@@ -419,7 +419,9 @@ def _solution(case, domain, heat, problem, u, T, G, converged, used, history, sc
     warnings = []
     # the wall shear stress from the coupled balance's own reaction (the isothermal
     # problem's reaction would use the viscosity at the wall temperature everywhere)
-    wall_stress = {name: -float(np.sum(r_u[wall.dofs])) / wall.perimeter
+    from ..post import wall_force_shares    # corner nodes split between their walls
+    shares = wall_force_shares(domain)
+    wall_stress = {name: -float(shares[name][1] @ r_u[shares[name][0]]) / wall.perimeter
                    for name, wall in domain.walls.items()}
     if domain.kind == "rotational":
         wall_stress = {name: abs(float(np.sum(r_u[wall.dofs]))) / (wall.perimeter * wall.position)
