@@ -190,6 +190,9 @@ def _finish(case: Case, domain: Domain, problem: Problem, outcome: Outcome, hist
     converged = outcome.converged and finite and residual <= spec.tolerance
     shown = f"{residual:.2e}" if math.isfinite(residual) else "not finite"
     if converged:
+        raw = _raw_residual(problem, u, gradient)
+        if raw > residual:   # the rest is the round-off of the state itself
+            shown = f"{raw:.2e}, at the round-off level"
         message = f"converged in {used} iterations (relative residual {shown})"
     elif outcome.failure:
         message = (f"not converged: {outcome.failure} after {used} iterations; last relative "
@@ -211,6 +214,14 @@ def _finish(case: Case, domain: Domain, problem: Problem, outcome: Outcome, hist
     solution.linear_solver = problem.linear.report()
     solution._problem = problem
     return solution
+
+
+def _raw_residual(problem: Problem, u, gradient) -> float:
+    """The relative residual with its round-off share left in (for the message)."""
+    try:
+        return problem.relative_residual(u, gradient, beyond_round_off=False)
+    except TypeError:   # a problem whose residual has no round-off split (slip walls)
+        return problem.relative_residual(u, gradient)
 
 
 def _regularisation_report(case: Case, problem: Problem, outcome: Outcome,

@@ -12,6 +12,9 @@ SEQUENCING_LIMIT = 20_000
 # coarse triangles (nearest by centroid) searched for each fine dof: long thin cells
 # put the containing triangle's centroid farther away than several neighbours' centroids
 CANDIDATES = 24
+#: triangles searched first; a point inside one of them (to INSIDE) needs no more
+FIRST_CANDIDATES = 4
+INSIDE = 1e-9
 # a point whose best straight-triangle barycentric coordinate is below this lies in no
 # candidate (it cannot happen on nested sections; guarded all the same)
 OUTSIDE = -0.5
@@ -30,8 +33,9 @@ def interpolated(coarse: Solution, domain: Domain) -> np.ndarray:
     """The coarse solution evaluated at the fine mesh's dofs; never raises for a point the
     coarse mesh's inverse map cannot place.
 
-    Each fine dof is located among its :data:`CANDIDATES` nearest coarse triangles as the
-    one whose straight-triangle barycentric coordinates are least negative. The coarse
+    Each fine dof is located among its :data:`FIRST_CANDIDATES` nearest coarse triangles,
+    or, if none of them contains it, among its :data:`CANDIDATES` nearest, as the one
+    whose straight-triangle barycentric coordinates are least negative. The coarse
     field is evaluated at the point's reference coordinates in that (curved) element
     (:func:`gnflow.geometry.reference_coordinates`); where that Newton iteration does not
     converge (a point in the thin sliver between a curved wall and its chord lies outside
@@ -46,20 +50,29 @@ def interpolated(coarse: Solution, domain: Domain) -> np.ndarray:
     mesh = basis.mesh
     p, t = mesh.p, mesh.t[:3]
     x = domain.basis.doflocs
-    centroids = p[:, t].mean(axis=1)
-    k = min(CANDIDATES, t.shape[1])
-    _, candidates = cKDTree(centroids.T).query(x.T, k=k)
-    candidates = candidates.reshape(x.shape[1], k)
+    tree = cKDTree(p[:, t].mean(axis=1).T)
     best = np.full(x.shape[1], -np.inf)
-    cells = candidates[:, 0].copy()
+    cells = np.zeros(x.shape[1], dtype=np.int64)
     straight = np.zeros((2, x.shape[1]))
-    for column in range(k):
-        tind = candidates[:, column]
-        lam = _barycentric(p, t, x, tind)
-        inside = np.minimum(np.minimum(lam[0], lam[1]), 1 - lam[0] - lam[1])
-        better = inside > best
-        best[better], cells[better] = inside[better], tind[better]
-        straight[:, better] = lam[:, better]
+    # the few nearest triangles hold almost every point; only the points that none of
+    # them contains are searched among CANDIDATES (160k fine dofs: 1.7 s -> 0.6 s)
+    todo = np.arange(x.shape[1])
+    for search, k in enumerate((min(FIRST_CANDIDATES, t.shape[1]), min(CANDIDATES, t.shape[1]))):
+        _, candidates = tree.query(x[:, todo].T, k=k)
+        candidates = candidates.reshape(todo.size, k)
+        if search == 0:
+            cells[todo] = candidates[:, 0]
+        for column in range(k):
+            tind = candidates[:, column]
+            lam = _barycentric(p, t, x[:, todo], tind)
+            inside = np.minimum(np.minimum(lam[0], lam[1]), 1 - lam[0] - lam[1])
+            better = inside > best[todo]
+            chosen = todo[better]
+            best[chosen], cells[chosen] = inside[better], tind[better]
+            straight[:, chosen] = lam[:, better]
+        todo = todo[best[todo] < -INSIDE]
+        if todo.size == 0:
+            break
     ref, converged = reference_coordinates(mesh, x[:, :, np.newaxis], cells)
     ref = np.where(converged[np.newaxis], ref, straight[:, :, np.newaxis])[:, :, 0]
     values = np.zeros(x.shape[1])
