@@ -134,13 +134,7 @@ def _spawned(target, *args):
 
 
 def run(method: str, cells: int):
-    context = multiprocessing.get_context("spawn")
-    queue = context.Queue()
-    process = context.Process(target=_child, args=(method, cells, queue))
-    process.start()
-    result = queue.get()
-    process.join()
-    return result
+    return _spawned(_child, method, cells)
 
 
 def main(argv):

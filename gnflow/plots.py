@@ -216,28 +216,19 @@ def _viscosity_panel(ax, x, viscosity, plug, exact: bool = False) -> None:
     yielded = ~plug
     shown = viscosity[yielded] if yielded.any() else viscosity
     shown = shown[np.isfinite(shown) & (shown > 0)]
-    if not shown.size:
+    ax.set_xlabel("apparent viscosity [Pa*s]")
+    if plug.any() or not shown.size:
         ax.set_title(PLUG_NOTE_EXACT if exact else PLUG_NOTE, fontsize=7, color="0.35")
-        ax.set_xlabel("apparent viscosity [Pa*s]")
+    if not shown.size:
         return
     low, high = float(shown.min()), float(shown.max())
-    if exact and plug.any():
-        ax.plot(np.where(yielded, viscosity, np.nan), x, color="tab:green")
-        ax.set_title(PLUG_NOTE_EXACT, fontsize=7, color="0.35")
-        _log_axis(ax, *_padded(low, high), which="x")
-        ax.set_xlabel("apparent viscosity [Pa*s]")
-        return
-    if plug.any():
+    ax.plot(np.where(yielded, viscosity, np.nan), x, color="tab:green")
+    if plug.any() and not exact:
         high = min(float(viscosity.max()), PLUG_VISCOSITY_CLIP * high)
-    solid = np.where(yielded, viscosity, np.nan)
-    ax.plot(solid, x, color="tab:green")
-    if plug.any():
         # join the dashed plug line to its yielded neighbours, so no gap opens at the edge
         grown = plug | np.roll(plug, 1) | np.roll(plug, -1)
         ax.plot(np.where(grown, np.minimum(viscosity, high), np.nan), x, color="0.55", ls="--")
-        ax.set_title(PLUG_NOTE, fontsize=7, color="0.35")
     _log_axis(ax, *_padded(low, high), which="x")
-    ax.set_xlabel("apparent viscosity [Pa*s]")
 
 
 # --------------------------------------------------------------------------- convergence

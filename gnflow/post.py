@@ -37,6 +37,7 @@ import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from skfem import BilinearForm, FacetBasis, LinearForm, asm
 
+from .geometry import wall_force_shares
 from .laminar import (
     APPROXIMATE_OFF_PIPE,
     bingham_plastic_reynolds,
@@ -258,48 +259,6 @@ def wall_stresses(solution: Solution) -> dict[str, float]:
         if solution.domain.kind == "rotational":
             out[name] = abs(force) / (wall.perimeter * wall.position)
     return out
-
-
-def wall_force_shares(domain) -> dict[str, tuple[np.ndarray, np.ndarray]]:
-    """Per wall, the dofs whose reactions make up the force on it and each one's share.
-
-    A dof where two walls at the same speed meet (a corner node of a 2-D section) carries
-    the reaction of the facets of both; it is split between them in proportion to the
-    lengths of their facets at the node (the integral of a vertex basis function over a
-    straight facet is proportional to its length). Giving the whole corner to one wall,
-    as the walls' own dofs do (they fix the boundary values), made the top and bottom of
-    a Bingham square duct differ by 2 % with a symmetric solution. Where walls at
-    different speeds meet the node moves with the wall that owns it, which keeps its
-    reaction, so that the walls' work is the speeds times the forces. 1-D sections: each
-    wall its own dofs.
-    """
-    wall_facets = domain.extra.get("wall_facets") if domain.dimension == 2 else None
-    if not wall_facets:
-        return {name: (wall.dofs, np.ones(wall.dofs.size)) for name, wall in domain.walls.items()}
-    basis, mesh = domain.basis, domain.basis.mesh
-    lengths = np.linalg.norm(mesh.p[:, mesh.facets[0]] - mesh.p[:, mesh.facets[1]], axis=0)
-    at_node, dofs = {}, {}
-    for name in domain.walls:
-        facets = np.asarray(wall_facets[name])
-        at_node[name] = np.bincount(mesh.facets[:, facets].ravel(),
-                                    weights=np.repeat(lengths[facets], 2),
-                                    minlength=mesh.nvertices)
-        dofs[name] = np.unique(basis.get_dofs(facets).all())
-    total = sum(at_node.values())
-    vertex_dofs = basis.nodal_dofs[0]            # the dof of each mesh vertex
-    shares = {}
-    for name, wall in domain.walls.items():
-        weights = np.ones(dofs[name].size)
-        vertices = np.flatnonzero(at_node[name] > 0)
-        for vertex in vertices[at_node[name][vertices] < total[vertices]]:
-            others = [o for o in domain.walls if o != name and at_node[o][vertex] > 0]
-            where = int(np.searchsorted(dofs[name], vertex_dofs[vertex]))
-            if all(domain.walls[o].value == wall.value for o in others):
-                weights[where] = at_node[name][vertex] / total[vertex]
-            else:
-                weights[where] = float(vertex_dofs[vertex] in set(wall.dofs.tolist()))
-        shares[name] = (dofs[name], weights)
-    return shares
 
 
 def singular_exclusion_radius(solution: Solution) -> float:

@@ -50,7 +50,7 @@ from skfem import BilinearForm, LinearForm, asm
 from skfem.helpers import dot, grad
 
 from ..errors import CaseError
-from ..geometry import Domain, build_domain
+from ..geometry import Domain, build_domain, wall_force_shares
 from .solution import Iteration, Solution
 from ..specs import HeatSpec, TemperatureShift  # noqa: F401  (TemperatureShift re-exported)
 
@@ -419,7 +419,6 @@ def _solution(case, domain, heat, problem, u, T, G, converged, used, history, sc
     warnings = []
     # the wall shear stress from the coupled balance's own reaction (the isothermal
     # problem's reaction would use the viscosity at the wall temperature everywhere)
-    from ..post import wall_force_shares    # corner nodes split between their walls
     shares = wall_force_shares(domain)
     wall_stress = {name: -float(shares[name][1] @ r_u[shares[name][0]]) / wall.perimeter
                    for name, wall in domain.walls.items()}
