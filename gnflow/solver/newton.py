@@ -31,9 +31,8 @@ def newton(problem: Problem, u, gradient, target_rate, tol, max_iterations, hist
     def merit(u_, g_):
         r = problem.relative_residual(u_, g_)
         if fixed_gradient:
-            return r, r
-        constraint = abs(problem.flow_rate(u_) - target_rate) / abs(target_rate)
-        return max(r, constraint), r
+            return r
+        return max(r, abs(problem.flow_rate(u_) - target_rate) / abs(target_rate))
 
     def direction(J, r, forcing):
         """The Newton correction (du, dG) of the system (J, r), bordered for a target."""
@@ -57,7 +56,7 @@ def newton(problem: Problem, u, gradient, target_rate, tol, max_iterations, hist
     def primal_system():
         return problem.tangent(u), problem.residual(u, gradient)
 
-    current, residual = merit(u, gradient)
+    current = merit(u, gradient)
     previous = current
     for _ in range(max_iterations):
         if current <= tol:
@@ -77,17 +76,17 @@ def newton(problem: Problem, u, gradient, target_rate, tol, max_iterations, hist
         # the solution), else the minimum of the dissipation along the direction
         step = 1.0
         trial_u, trial_g = u + du, gradient + d_gradient
-        trial, trial_residual = merit(trial_u, trial_g)
+        trial = merit(trial_u, trial_g)
         if not trial < 0.9 * current and not fresh:
             # the primal-dual step fails: the primal Newton step from u instead
             dual = DualStress(problem, u)
             du, d_gradient = direction(*primal_system(), forcing)
             trial_u, trial_g = u + du, gradient + d_gradient
-            trial, trial_residual = merit(trial_u, trial_g)
+            trial = merit(trial_u, trial_g)
         if not trial < 0.9 * current:
             step = line_search(problem, u, gradient, du, d_gradient)
             trial_u, trial_g = u + step * du, gradient + step * d_gradient
-            trial, trial_residual = merit(trial_u, trial_g)
+            trial = merit(trial_u, trial_g)
         if not np.isfinite(trial):
             history.append(Iteration(iteration, "newton", current, 0.0, gradient))
             return u, gradient, False, iteration
@@ -102,7 +101,7 @@ def newton(problem: Problem, u, gradient, target_rate, tol, max_iterations, hist
         if step < 1e-3:
             # the Newton direction no longer reduces the residual: a Picard step moves on
             u, gradient = picard_step(problem, u, gradient, target_rate)
-            current, _ = merit(u, gradient)
+            current = merit(u, gradient)
             history.append(Iteration(iteration, "picard", current, 1.0, gradient))
             dual = DualStress(problem, u) if dual_ok else None
     return u, gradient, current <= tol, iteration
