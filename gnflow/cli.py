@@ -294,7 +294,11 @@ def format_summary(summary: dict) -> str:
                  ("power per length", _fmt(summary["power_per_length"], "W/m"))]
     rows += _wall_rows(summary)
     if "unyielded_fraction" in summary:
-        rows.append(("unyielded area fraction", _fmt(summary["unyielded_fraction"], "", 4)))
+        shown = _fmt(summary["unyielded_fraction"], "", 4)
+        spread = summary.get("unyielded_fraction_uncertainty")
+        if spread:
+            shown += f" +- {spread:.2g}"
+        rows.append(("unyielded area fraction", shown))
     if summary.get("regularisation"):
         r = summary["regularisation"]
         rows.append((f"regularisation ({r['method']})", _fmt(r["parameter"], r["unit"], 4)

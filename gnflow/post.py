@@ -450,7 +450,8 @@ def unyielded_zones(solution: Solution, point_fields: dict) -> dict:
 
     The exact method (``method = "none"``) keeps its own 2-D fraction, from the
     complementarity of its optimum (the nodal stress of a non-regularised model is not
-    defined in a plug).
+    defined in a plug), and its uncertainty: the points the complementarity pair leaves
+    undecided at the solver tolerance, counted both ways.
     """
     domain, tau_y = solution.domain, solution.model.yield_stress
     stress = point_fields["shear_stress"]
@@ -467,7 +468,7 @@ def unyielded_zones(solution: Solution, point_fields: dict) -> dict:
     report = solution.regularisation or {}
     if report.get("method") == "none" and "unyielded_fraction" in report:
         return {"unyielded_fraction": report["unyielded_fraction"],
-                "unyielded_fraction_uncertainty": None}
+                "unyielded_fraction_uncertainty": report.get("unyielded_fraction_uncertainty")}
     basis = domain.basis
     if basis.element_dofs.shape[0] == 6:
         points, triangles = p2_sub_triangles(basis)

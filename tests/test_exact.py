@@ -157,6 +157,24 @@ def test_square_duct_flow_rate_converges_under_refinement(ratio, change):
     assert abs(fine - coarse) < change * fine
 
 
+def test_unyielded_fraction_uncertainty_holds_the_fraction_at_a_tighter_tolerance():
+    """The exact unyielded fraction depends on the interior-point tolerance (the discrete
+    rates fall smoothly to zero toward the plug, so every tolerance leaves some points
+    undecided); the reported uncertainty at a loose tolerance must hold the figure of a
+    100x tighter one, and shrink with it."""
+    from dataclasses import replace
+    case = square(0.5, 24)
+    figures = []
+    for tolerance in (1e-7, 1e-9):
+        tuned = replace(case, solver=replace(case.solver, tolerance=tolerance))
+        report = solve_exact(tuned).regularisation
+        figures.append((report["unyielded_fraction"], report["unyielded_fraction_uncertainty"]))
+    (loose, loose_spread), (tight, tight_spread) = figures
+    assert 0 < tight_spread < loose_spread
+    assert loose != tight
+    assert abs(tight - loose) <= loose_spread
+
+
 # ------------------------------------------------------------------ 1-D closed forms
 
 def test_pipe_matches_buckingham_reiner_with_its_plug():

@@ -146,6 +146,7 @@ class ConicResult:
     iterations: int
     residual: float
     seconds: float
+    tolerance: float = 1e-9   # the interior-point tolerance asked for
 
 
 def _settings(tolerance: float) -> clarabel.DefaultSettings:
@@ -164,6 +165,10 @@ def _settings(tolerance: float) -> clarabel.DefaultSettings:
     # grows), 14.9 with faer's supernodal factorisation in place of qdldl on top
     settings.iterative_refinement_enable = False
     settings.direct_solve_method = "faer"
+    # one thread: faer's second thread did not shorten the factorisations of these 2-D
+    # programs (small supernodes), and on a shared 2-core machine it only competes; at
+    # 58k unknowns 14.1 CPU s against 16.6-18.1 with two (bench/exact.py --settings)
+    settings.max_threads = 1
     return settings
 
 
@@ -179,7 +184,7 @@ def _run(P, q, A, b, cones, tolerance: float, progress=None) -> ConicResult:
     residual = max(info.res_primal, info.res_dual, info.gap_rel)
     return ConicResult(np.asarray(solution.x), np.asarray(solution.z), str(solution.status),
                        int(solution.iterations), float(residual),
-                       time.perf_counter() - started)
+                       time.perf_counter() - started, tolerance)
 
 
 def _cone_rows(section: ConicSection, columns: int, t_offset: int, u_scale_rows: float,
@@ -369,6 +374,7 @@ class ExactFlow:
     stress_ratio: np.ndarray      # |yield part of the stress| / tau_y at those points (<= 1)
     unyielded: np.ndarray         # bool per point
     flux: np.ndarray              # (points, dim): weight_p times the stress vector at x_p
+    undecided: np.ndarray | None = None   # bool per point: neither side clearly zero
 
 
 def read_flow(case: Case, section: ConicSection, program: FlowProgram,
@@ -398,12 +404,21 @@ def read_flow(case: Case, section: ConicSection, program: FlowProgram,
     # each measured on its own scale (the drive's rate scale, the yield stress)
     rate_scale = sc.speed / sc.length * float(np.max(section.rate_factor))
     unyielded = rate / rate_scale < 1.0 - stress_ratio
+    # on the interior-point path the two sides' product is of the order of the tolerance,
+    # so where both are below about its square root the pair does not decide the point.
+    # The discrete rates fall smoothly to zero toward the plugs and dead zones (no gap),
+    # so the fraction drifts with the tolerance: square duct, tau_y/tau_c = 0.5, 63 cells,
+    # 0.198, 0.190, 0.185, 0.180, 0.174 at 1e-7 ... 1e-11. The band below ten times the
+    # square root, counted both ways, held every later figure at each tolerance (the
+    # square root alone did not: 0.186-0.212 at 1e-7)
+    band = 10.0 * math.sqrt(result.tolerance)
+    undecided = (rate / rate_scale < band) & (1.0 - stress_ratio < band)
     # KKT of the u block: P x + q + A'z = 0 with the gradient rows of A equal to
     # -length B: the cones' duals are the flux the program's own stress exerts,
     # weight_p sigma_p = -z_g length energy / speed (Bingham: the yield part only, the
     # viscous part is in P and added by consistent_reaction)
     flux = -z[:, 1:] * (sc.length * sc.energy / sc.speed)
-    return ExactFlow(u, gradient, rate, stress_ratio, unyielded, flux)
+    return ExactFlow(u, gradient, rate, stress_ratio, unyielded, flux, undecided)
 
 
 def consistent_reaction(case: Case, section: ConicSection, flow: ExactFlow) -> np.ndarray:
@@ -524,18 +539,24 @@ def apparent_model(case: Case, scales: Scales):
 def _exact_report(case: Case, section: ConicSection, flow: ExactFlow,
                   result: ConicResult) -> dict:
     domain = section.domain
-    fraction = float(section.weight[flow.unyielded].sum() / section.weight.sum()) \
-        if section.weight.sum() > 0 else 0.0
-    if domain.kind == "rotational":
-        # the weight includes the rate factor r; the area share uses a alone
-        area = section.weight / section.rate_factor
-        fraction = float(area[flow.unyielded].sum() / area.sum())
+    # the weight includes the rate factor (r on a rotational gap); the area share uses a alone
+    area = section.weight / section.rate_factor if domain.kind == "rotational" \
+        else section.weight
+    total = float(area.sum())
+
+    def share(points) -> float:
+        return float(area[points].sum() / total) if total > 0 else 0.0
+    fraction = share(flow.unyielded)
+    undecided = flow.undecided if flow.undecided is not None else np.zeros_like(flow.unyielded)
+    uncertainty = max(fraction - share(flow.unyielded & ~undecided),
+                      share(flow.unyielded | undecided) - fraction)
     # plain numbers only (the report goes into summary.json as it is); the point-wise
     # unyielded set is on the solution as ``yield_points``
     report = {"method": "none",
               "parameter": None, "unit": None,
               "chosen": "exact yield-stress flow, no regularisation parameter",
               "unyielded_fraction": fraction,
+              "unyielded_fraction_uncertainty": uncertainty,
               "unyielded_definition": (
                   "yield-term quadrature points (element by element) where the shear rate, "
                   "relative to the largest, is below 1 - |stress| / yield stress: the side "
