@@ -279,14 +279,23 @@ def _heat_slip_rows(summary: dict) -> list[tuple[str, str]]:
     return rows
 
 
+def _adapted_note(summary: dict) -> str:
+    """`` (adapted: ...)`` when the default 1-D mesh was adapted, else nothing."""
+    adapted = summary.get("mesh_adapted")
+    if not adapted:
+        return ""
+    return (f" (adapted from the default {adapted['default_cells']}, whose estimated "
+            f"relative error was {adapted['estimate_default_mesh']:.1e})")
+
+
 def format_summary(summary: dict) -> str:
     """The printed summary: key results with units, notes, warnings and assumptions.
 
     The cautions come separately (:func:`format_cautions`), after the list of files, so
     that the printout ends with them."""
     lines = [f"gnflow: {summary['title']}",
-             f"  {summary['model']} fluid, {summary['shape']}; {summary['cells']} cells, "
-             f"P{summary['degree']}, {summary['dofs']} unknowns",
+             f"  {summary['model']} fluid, {summary['shape']}; {summary['cells']} cells"
+             f"{_adapted_note(summary)}, P{summary['degree']}, {summary['dofs']} unknowns",
              f"  solver: {summary['message']}"]
     rows = _axial_rows(summary) if "flow_rate" in summary else []
     if "torque_per_length" in summary:

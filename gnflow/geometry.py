@@ -109,8 +109,15 @@ def graded_points(cells: int, grading: float, walls: str) -> np.ndarray:
 
 
 def _line_basis(start: float, end: float, cells: int, degree: int, grading: float,
-                walls: str) -> Basis:
-    points = start + (end - start) * graded_points(cells, grading, walls)
+                walls: str, nodes: np.ndarray | None = None) -> Basis:
+    """The 1-D basis on ``[start, end]``: ``cells`` graded cells, or the given ``nodes``
+    (an adapted mesh, see :mod:`gnflow.solver.adapt`; sorted, ends included)."""
+    if nodes is not None:
+        points = np.asarray(nodes, dtype=float)
+        if not (points[0] == start and points[-1] == end and np.all(np.diff(points) > 0)):
+            raise ValueError("line mesh nodes must rise from one wall to the other")
+    else:
+        points = start + (end - start) * graded_points(cells, grading, walls)
     mesh = MeshLine(points)
     element = ElementLineP2() if degree == 2 else ElementLineP1()
     # P2 with a weight r (axisymmetric) and a nonlinear viscosity: a generous rule keeps the
@@ -123,11 +130,12 @@ def _end_dof(basis: Basis, at_start: bool) -> np.ndarray:
     return np.array([np.argmin(x) if at_start else np.argmax(x)])
 
 
-def build_domain(case: Case, cells: int | None = None) -> Domain:
-    """The :class:`Domain` of a case (``cells`` overrides ``case.mesh.cells``); a mesh that
-    folds (too few cells for a strongly curved or eccentric section) is a bad input."""
+def build_domain(case: Case, cells: int | None = None, nodes: np.ndarray | None = None) -> Domain:
+    """The :class:`Domain` of a case (``cells`` overrides ``case.mesh.cells``; for a 1-D
+    shape, ``nodes`` gives the mesh's node positions instead); a mesh that folds (too
+    few cells for a strongly curved or eccentric section) is a bad input."""
     try:
-        return _build_domain(case, cells)
+        return _build_domain(case, cells, nodes)
     except MeshMappingError as err:
         shown = cells or case.mesh.cells
         raise CaseError("mesh.cells", shown, message=(
@@ -135,12 +143,12 @@ def build_domain(case: Case, cells: int | None = None) -> Domain:
             "give more cells")) from None
 
 
-def _build_domain(case: Case, cells: int | None = None) -> Domain:
+def _build_domain(case: Case, cells: int | None = None, nodes=None) -> Domain:
     g, mesh = case.geometry, case.mesh
-    cells = cells or mesh.cells
+    cells = len(nodes) - 1 if nodes is not None else cells or mesh.cells
     speeds = case.drive.wall_speed
     if g.shape == "slit":
-        basis = _line_basis(0.0, g.gap, cells, mesh.degree, mesh.wall_refinement, "both")
+        basis = _line_basis(0.0, g.gap, cells, mesh.degree, mesh.wall_refinement, "both", nodes)
         walls = {
             "bottom": Wall("bottom", _end_dof(basis, True), speeds.get("bottom", 0.0), 1.0, 0.0, -1.0),
             "top": Wall("top", _end_dof(basis, False), speeds.get("top", 0.0), 1.0, g.gap, 1.0),
@@ -148,14 +156,15 @@ def _build_domain(case: Case, cells: int | None = None) -> Domain:
         return Domain("slit", "axial", basis, walls, "y", False, g.gap, 2 * g.gap, g.gap,
                       mesh.degree, cells)
     if g.shape == "pipe":
-        basis = _line_basis(0.0, g.radius, cells, mesh.degree, mesh.wall_refinement, "right")
+        basis = _line_basis(0.0, g.radius, cells, mesh.degree, mesh.wall_refinement, "right",
+                             nodes)
         walls = {"wall": Wall("wall", _end_dof(basis, False), speeds.get("wall", 0.0),
                               2 * math.pi * g.radius, g.radius, 1.0)}
         return Domain("pipe", "axial", basis, walls, "r", True, math.pi * g.radius ** 2,
                       2 * g.radius, g.radius, mesh.degree, cells)
     if g.shape == "annulus" and g.eccentricity == 0.0:
         ri, ro = g.inner_radius, g.outer_radius
-        basis = _line_basis(ri, ro, cells, mesh.degree, mesh.wall_refinement, "both")
+        basis = _line_basis(ri, ro, cells, mesh.degree, mesh.wall_refinement, "both", nodes)
         walls = {
             "inner": Wall("inner", _end_dof(basis, True), speeds.get("inner", 0.0),
                           2 * math.pi * ri, ri, -1.0),
@@ -166,7 +175,7 @@ def _build_domain(case: Case, cells: int | None = None) -> Domain:
                       2 * (ro - ri), ro - ri, mesh.degree, cells)
     if g.shape == "coaxial-cylinders":
         ri, ro = g.inner_radius, g.outer_radius
-        basis = _line_basis(ri, ro, cells, mesh.degree, mesh.wall_refinement, "both")
+        basis = _line_basis(ri, ro, cells, mesh.degree, mesh.wall_refinement, "both", nodes)
         walls = {
             "inner": Wall("inner", _end_dof(basis, True), case.drive.inner_angular_speed,
                           2 * math.pi * ri, ri, -1.0),

@@ -617,6 +617,8 @@ def summarise(solution: Solution, point_fields: dict | None,
         "degree": domain.degree,
         "solve_seconds": solution.seconds,
     }
+    if "adapted" in domain.extra:   # the default 1-D mesh, adapted (gnflow.solver.adapt)
+        out["mesh_adapted"] = dict(domain.extra["adapted"])
     signed = wall_stresses(solution)
     out.update(_wall_summary(solution, signed, distributions, notes))
     if domain.kind == "axial":

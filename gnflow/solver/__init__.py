@@ -70,6 +70,7 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
         from .heat import solve_heated
         return solve_heated(case, case.heat, domain=domain, cells=cells, progress=progress)
     started = time.perf_counter()
+    adaptable = cells is None and domain is None   # the default 1-D mesh may be adapted
     domain = domain or build_domain(case, cells)
     coarse = _sequenced_coarse(case, domain, progress)
     history = _History(progress)   # progress(entry) is called on every iteration
@@ -86,6 +87,9 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
                                  outcome.gradient))
     solution = _finish(case, domain, problem, outcome, history, time.perf_counter() - started)
     solution.coarse = coarse
+    if adaptable and domain.dimension == 1:
+        from .adapt import refined
+        solution = refined(case, solution, history)
     if case.fluid.model.is_yield_stress:
         solution.regularisation = _regularisation_report(
             case, problem, outcome, estimate_regularisation and solution.converged)
