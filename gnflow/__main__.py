@@ -2,6 +2,10 @@
 
 import sys
 
-from .cli import main
+try:
+    from .cli import main
+except KeyboardInterrupt:   # Ctrl-C during start-up: the same one line as during a run
+    print("gnflow: interrupted; results of this run were not written", file=sys.stderr)
+    sys.exit(130)
 
 sys.exit(main())
