@@ -22,6 +22,11 @@ same solve without the profiler is printed first.
 
     python bench/profile_solve.py [--cells 200] [--models newtonian,power-law,...]
     python bench/profile_solve.py --one-d      # a 1-D pipe, 200 solves per model
+    python bench/profile_solve.py --calls      # also: calls and seconds of the hot routines
+
+``--calls`` prints, per model, the number of calls and the cumulative profiled seconds of
+each routine in ``CALLS`` (all mesh levels of the grid sequencing together), and the
+seconds per fine-level Newton step of the whole solve.
 """
 
 from __future__ import annotations
@@ -45,6 +50,36 @@ PHASES = (
               "skfem/assembly/basis", "skfem/element", "skfem/quadrature")),
     ("assembly", ("assembly.py", "slip.py")),
 )
+
+
+#: (label, file suffix, function name) of the routines listed by --calls
+CALLS = (
+    ("plan.matrix", "solver/assembly.py", "matrix"),
+    ("plan.gradient", "solver/assembly.py", "gradient"),
+    ("plan.force", "solver/assembly.py", "force"),
+    ("plan.diagonal", "solver/assembly.py", "diagonal"),
+    ("plan.magnitude", "solver/assembly.py", "magnitude"),
+    ("plan build", "solver/assembly.py", "__init__"),
+    ("viscosity", "gnflow/rheology.py", "viscosity"),
+    ("viscosity'", "gnflow/rheology.py", "viscosity_derivative"),
+    ("amg setup", "solver/linear.py", "_build_hierarchy"),
+    ("linear prepare", "solver/linear.py", "prepare"),
+    ("linear solve", "solver/linear.py", "solve"),
+)
+
+
+def call_table(profile: cProfile.Profile) -> list[tuple[str, int, float]]:
+    """(label, calls, cumulative seconds) of each routine in CALLS."""
+    stats = pstats.Stats(profile)
+    rows = []
+    for label, suffix, name in CALLS:
+        count, seconds = 0, 0.0
+        for (filename, _, function), (_, ncalls, _, cumulative, _) in stats.stats.items():
+            if function == name and filename.endswith(suffix):
+                count += ncalls
+                seconds += cumulative
+        rows.append((label, count, seconds))
+    return rows
 
 
 def phase_of(key, stats: pstats.Stats, depth: int = 0, seen=None) -> str:
@@ -93,6 +128,8 @@ def main() -> None:
     parser.add_argument("--cells", type=int, default=200, help="cells per side (200: 160k)")
     parser.add_argument("--models", default=",".join(FLUIDS))
     parser.add_argument("--one-d", action="store_true", help="profile 1-D pipe solves")
+    parser.add_argument("--calls", action="store_true",
+                        help="also print calls and seconds of the hot routines")
     args = parser.parse_args()
     from gnflow import solve
 
@@ -117,7 +154,15 @@ def main() -> None:
         shares, total = phases(profile)
         cells = " ".join(f"{100 * shares.get(n, 0.0) / total:10.1f}%" for n in names)
         shown = f"{wall * 1e3:6.2f}m" if args.one_d else f"{wall:7.2f}"
-        print(f"{model:18s} {shown:>7s} {solution.iterations:5d} {cells}")
+        print(f"{model:18s} {shown:>7s} {solution.iterations:5d} {cells}", flush=True)
+        if args.calls:
+            steps = max(solution.iterations, 1) * repeat
+            print(f"    {'routine':16s} {'calls':>6s} {'cum s':>7s} {'ms/call':>8s}"
+                  f"   (profiled {total / repeat:.2f} s, {total / steps:.3f} s per fine step)")
+            for label, count, seconds in call_table(profile):
+                if count:
+                    print(f"    {label:16s} {count // repeat:6d} {seconds / repeat:7.3f} "
+                          f"{1e3 * seconds / count:8.2f}")
 
 
 if __name__ == "__main__":

@@ -2,8 +2,12 @@
 
 The case is a shear-thinning (power-law, n = 0.5) fluid in a pipe, driven by a pressure
 gradient varied over 1000 values; every case is a full build, solve and summary, no
-output files. Prints a table: cases, workers, wall seconds, cases per second, and the
-speed-up over one worker measured in the same run.
+output files. Prints a table: cases, workers, wall seconds, cases per second, the
+speed-up over one worker measured in the same run, and the CPU seconds the solving
+processes used (this process for one worker, the worker processes otherwise). On a
+shared machine the wall time of several workers depends on what else runs; the CPU
+seconds per worker (``cpu s / workers``) are what the wall time would be on idle cores,
+less the pool's start-up.
 
     python bench/sweep.py [--cases 1000] [--workers 1 2] [--cells 200]
 """
@@ -33,14 +37,22 @@ def main():
           f"{args.cells} cells P2; {os.cpu_count()} cores, load average "
           f"{os.getloadavg()[0]:.1f} at start")
     print(f"{'cases':>6s} {'workers':>8s} {'seconds':>8s} {'cases/s':>8s} {'speed-up':>9s} "
-          f"{'failed':>7s}")
+          f"{'failed':>7s} {'cpu s':>6s}")
     base = None
     for workers in args.workers:
+        before = os.times()
         table = run_sweep(case, [vary], workers=workers, show_progress=False)
+        after = os.times()
+        if workers == 1:
+            cpu = (after.user + after.system) - (before.user + before.system)
+        else:   # the workers, joined when the pool closed
+            cpu = (after.children_user + after.children_system) - \
+                (before.children_user + before.children_system)
         base = base or table.seconds
         print(f"{len(table.rows):6d} {workers:8d} {table.seconds:8.1f} "
               f"{len(table.rows) / table.seconds:8.1f} {base / table.seconds:9.2f} "
-              f"{table.failed:7d}")
+              f"{table.failed:7d} {cpu:6.1f}")
+    print(f"load average {os.getloadavg()[0]:.1f} at the end")
 
 
 if __name__ == "__main__":

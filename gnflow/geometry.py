@@ -19,6 +19,7 @@ With these, the momentum balance of every shape is one weak form,
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass, field
 
@@ -111,7 +112,20 @@ def graded_points(cells: int, grading: float, walls: str) -> np.ndarray:
 def _line_basis(start: float, end: float, cells: int, degree: int, grading: float,
                 walls: str, nodes: np.ndarray | None = None) -> Basis:
     """The 1-D basis on ``[start, end]``: ``cells`` graded cells, or the given ``nodes``
-    (an adapted mesh, see :mod:`gnflow.solver.adapt`; sorted, ends included)."""
+    (an adapted mesh, see :mod:`gnflow.solver.adapt`; sorted, ends included).
+
+    The bases of the last few line meshes are kept (a study solves the same geometry and
+    mesh many times; building a basis costs more than a 1-D Newton step). A basis is never
+    changed after it is built, so sharing one between domains is safe."""
+    given = None if nodes is None else np.asarray(nodes, dtype=float).tobytes()
+    return _line_basis_cached(float(start), float(end), int(cells), int(degree),
+                              float(grading), walls, given)
+
+
+@functools.lru_cache(maxsize=16)
+def _line_basis_cached(start: float, end: float, cells: int, degree: int, grading: float,
+                       walls: str, given: bytes | None) -> Basis:
+    nodes = None if given is None else np.frombuffer(given, dtype=float)
     if nodes is not None:
         points = np.asarray(nodes, dtype=float)
         if not (points[0] == start and points[-1] == end and np.all(np.diff(points) > 0)):

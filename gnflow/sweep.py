@@ -251,9 +251,22 @@ def hold_consistency(raw: dict, case: Case, keys) -> dict:
     return raw
 
 
+def _plain_copy(value):
+    """A copy of a case mapping: new dicts and lists all the way down (what ``assign``
+    may change), the leaves (numbers, strings) shared; anything else deep-copied. Less
+    than half the time of ``copy.deepcopy`` on a case (4 us against 10 us, a pipe case)."""
+    if isinstance(value, dict):
+        return {key: _plain_copy(item) for key, item in value.items()}
+    if isinstance(value, list):
+        return [_plain_copy(item) for item in value]
+    if isinstance(value, (str, int, float, bool, type(None))):
+        return value
+    return copy.deepcopy(value)
+
+
 def build_case(raw: dict, keys: tuple, values: tuple, source=None) -> Case:
     """The case of one grid point: ``raw`` with each key set to its value."""
-    mapping = copy.deepcopy(raw)
+    mapping = _plain_copy(raw)
     for key, value in zip(keys, values):
         assign(mapping, key, value)
     return Case.from_dict(mapping, source)
@@ -338,7 +351,9 @@ def solve_point(raw: dict, keys: tuple, values: tuple, source, outputs: tuple | 
         return {"outputs": {}, "converged": False, "error": f"bad case: {err}",
                 "warnings": []}
     try:
-        summary = solve(case).summary()
+        # the summary itself, not summary()'s deep copy (a third of the post-processing
+        # time of a 1-D case): it is only read here, its numbers and texts copied out
+        summary = solve(case)._summary
     except (ArithmeticError, ValueError, RuntimeError, MemoryError,
             np.linalg.LinAlgError) as err:
         # a case the numerics cannot handle is one failed row, not the end of the study

@@ -75,7 +75,16 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
     coarse = _sequenced_coarse(case, domain, progress)
     history = _History(progress)   # progress(entry) is called on every iteration
     problem, start, soft_start, wanted_for = _setup(case, domain, coarse)
-    if case.fluid.model.is_yield_stress:
+    early = None
+    if adaptable and domain.dimension == 1 and not case.fluid.model.is_yield_stress:
+        # from an exact start the mesh error is estimated before any solve: a default
+        # mesh found too coarse is never solved on (see adapt.adapted_at_once)
+        from .adapt import adapted_at_once
+        early = adapted_at_once(case, problem, start, history)
+        adaptable = early is None
+    if early is not None:
+        domain, problem, outcome = early
+    elif case.fluid.model.is_yield_stress:
         outcome = continue_regularisation(problem, start, soft_start, case.drive.flow_rate,
                                           case.solver, history, wanted_for)
     else:

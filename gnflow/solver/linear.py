@@ -104,7 +104,7 @@ class LinearSolver:
         """
         if self.band is None or not (np.array_equal(self.band[0], matrix.indptr)
                                      and np.array_equal(self.band[1], matrix.indices)):
-            self.band = (matrix.indptr.copy(), matrix.indices.copy()) + _band_layout(matrix)
+            self.band = _cached_layout(matrix)
         _, _, order, width, upper, position = self.band
         if width > BANDED_WIDTH:
             return None
@@ -189,6 +189,28 @@ class LinearSolver:
                 "amg_setups": self.setups, "cg_iterations": sum(self.cg_iterations),
                 "singular_factor_fallbacks": self.fallbacks,
                 "switched_to_direct": self.switched}
+
+
+#: The band layouts of the last few sparsity patterns: a study solves the same 1-D mesh
+#: many times, and the layout (a reordering) costs as much as a factorisation.
+_LAYOUTS: dict = {}
+_LAYOUTS_KEPT = 8
+
+
+def _cached_layout(matrix: sp.csr_matrix):
+    """``(indptr, indices) + _band_layout(matrix)``, from the cache when the pattern was
+    seen before (the arrays are read-only: shared by every solver of that pattern)."""
+    key = (matrix.shape[0], matrix.indptr.tobytes(), matrix.indices.tobytes())
+    found = _LAYOUTS.get(key)
+    if found is None:
+        found = (matrix.indptr.copy(), matrix.indices.copy()) + _band_layout(matrix)
+        for part in found:
+            if isinstance(part, np.ndarray):
+                part.setflags(write=False)
+        if len(_LAYOUTS) >= _LAYOUTS_KEPT:
+            _LAYOUTS.pop(next(iter(_LAYOUTS)))
+        _LAYOUTS[key] = found
+    return found
 
 
 def _band_layout(matrix: sp.csr_matrix):

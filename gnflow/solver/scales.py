@@ -23,9 +23,13 @@ def invert_flow_curve(model: rheology.Model, stress: float) -> float:
     """The shear rate at which the model's stress equals ``stress`` (> 0), clipped to
     [e^-60, e^60] 1/s; NaN if the stress is not finite or the flow curve is undefined
     (NaN) at those ends (a model whose values leave the floating-point range)."""
+    low, high = -60.0, 60.0
+    closed = _closed_form_rate(model, stress)
+    if closed is not None:
+        return min(max(closed, math.exp(low)), math.exp(high))
+
     def gap(log_rate):
         return float(model.stress(np.array([math.exp(log_rate)]))[0]) - stress
-    low, high = -60.0, 60.0
     gap_low, gap_high = gap(low), gap(high)
     if not math.isfinite(stress) or math.isnan(gap_low) or math.isnan(gap_high):
         return math.nan
@@ -34,6 +38,24 @@ def invert_flow_curve(model: rheology.Model, stress: float) -> float:
     if gap_high <= 0:
         return math.exp(high)
     return math.exp(brentq(gap, low, high, xtol=1e-10))
+
+
+def _closed_form_rate(model: rheology.Model, stress: float) -> float | None:
+    """The rate at ``stress`` of a Newtonian or power-law fluid in closed form (exact where
+    the root search would stop within 1e-10 of it), or None for another model or a value
+    beyond the floating-point range (the root search decides then)."""
+    if not (math.isfinite(stress) and stress > 0):
+        return None
+    if type(model) is rheology.Newtonian:
+        rate = stress / model.viscosity_value
+    elif type(model) is rheology.PowerLaw:
+        try:
+            rate = math.exp((math.log(stress) - math.log(model.consistency)) / model.flow_index)
+        except OverflowError:
+            return None
+    else:
+        return None
+    return rate if math.isfinite(rate) and rate > 0 else None
 
 
 def characteristic_rate(case: Case, domain: Domain, model: rheology.Model) -> float:
