@@ -433,8 +433,6 @@ def adapted_at_once(case, problem, start, history):
     adapted mesh only, sparing the default mesh's solve (annulus, n = 0.3: 6 of its 10
     Newton steps). ``history`` gets the adapted solve's steps if it converges."""
     from .assembly import Problem
-    from .continuation import iterate_once
-    from .linear import LinearSolver
 
     model, domain = problem.model, problem.domain
     u, gradient = start
@@ -458,28 +456,45 @@ def adapted_at_once(case, problem, start, history):
         return None
     if points is None:
         return None
+    return _solve_adapted(case, model, points, profile, problem.rate_floor, gradient, None,
+                          0, history, domain.cells, before, interpolate=False)
+
+
+def _solve_adapted(case, model, points, profile, rate_floor, gradient, flow_rate, done,
+                   history, default_cells, before, interpolate):
+    """``(domain, problem, outcome)`` of the solve on the mesh with nodes ``points``,
+    started from the exact solution of ``profile``'s stress field (or, if that cannot be
+    formed and ``interpolate``, from the profile's P2 solution), or None if it does not
+    converge. ``history`` gets its steps only if it converges."""
+    from .assembly import Problem
+    from .continuation import iterate_once
+    from .linear import LinearSolver
+
     new_domain = build_domain(case, nodes=points)
-    new = Problem(new_domain, model)
-    new.rate_floor = problem.rate_floor
-    new.linear = LinearSolver(case.solver.linear_solver, new.free.size, dimension=1)
+    problem = Problem(new_domain, model)
+    problem.rate_floor = rate_floor
+    problem.linear = LinearSolver(case.solver.linear_solver, problem.free.size, dimension=1)
+    # the start: the exact solution of the stress field (its error is the first solve's,
+    # about 1e-6), far closer near a zero-stress point than the interpolated first
+    # solution (whose rate is off by its whole size there)
     x = new_domain.basis.doflocs[0]
     ordered = np.sort(x)
     values = profile.values(ordered)
-    if values is None:
+    if values is None and not interpolate:
         return None
-    u = values[np.searchsorted(ordered, x)]
+    u = profile.fe_values(x) if values is None else values[np.searchsorted(ordered, x)]
     for wall in new_domain.walls.values():
         u[wall.dofs] = wall.value
     steps: list = []
-    outcome = iterate_once(new, u, gradient, None, case.solver.method, case.solver.tolerance,
-                           case.solver.max_iterations, steps, 0)
+    outcome = iterate_once(problem, u, gradient, flow_rate, case.solver.method,
+                           case.solver.tolerance, case.solver.max_iterations, steps, done)
     if not outcome.converged:
         return None
     for step in steps:
         history.append(step)
-    new_domain.extra["adapted"] = {"default_cells": domain.cells, "cells": new_domain.cells,
+    new_domain.extra["adapted"] = {"default_cells": default_cells, "cells": new_domain.cells,
                                    "estimate_default_mesh": before}
-    return new_domain, new, outcome
+    return new_domain, problem, outcome
 
 
 def refined(case, solution, history):
@@ -487,8 +502,6 @@ def refined(case, solution, history):
     is fine enough, the case is not one this applies to, or the re-solve fails."""
     from . import _finish
     from .assembly import Problem
-    from .continuation import iterate_once
-    from .linear import LinearSolver
 
     model, domain = solution.model, solution.domain
     if not (getattr(case.mesh, "adaptive", False) and solution.converged
@@ -509,29 +522,13 @@ def refined(case, solution, history):
         return solution
     if points is None:
         return solution
-    new_domain = build_domain(case, nodes=points)
-    problem = Problem(new_domain, model)
-    problem.rate_floor = solution.problem().rate_floor
-    problem.linear = LinearSolver(case.solver.linear_solver, problem.free.size, dimension=1)
-    # the start: the exact solution of the first solve's stress field (its error is the
-    # first solve's, about 1e-6), far closer near a zero-stress point than the
-    # interpolated first solution (whose rate is off by its whole size there)
-    x = new_domain.basis.doflocs[0]
-    ordered = np.sort(x)
-    values = profile.values(ordered)
-    u = profile.fe_values(x) if values is None else values[np.searchsorted(ordered, x)]
-    for wall in new_domain.walls.values():
-        u[wall.dofs] = wall.value
-    steps: list = []   # into the history only if the re-solve converges
-    outcome = iterate_once(problem, u, solution.pressure_gradient, case.drive.flow_rate,
-                           case.solver.method, case.solver.tolerance,
-                           case.solver.max_iterations, steps, solution.iterations)
-    if not outcome.converged:
+    found = _solve_adapted(case, model, points, profile, solution.problem().rate_floor,
+                           solution.pressure_gradient, case.drive.flow_rate,
+                           solution.iterations, history, domain.cells, before,
+                           interpolate=True)
+    if found is None:
         return solution
-    for step in steps:
-        history.append(step)
-    new_domain.extra["adapted"] = {"default_cells": domain.cells, "cells": new_domain.cells,
-                                   "estimate_default_mesh": before}
+    new_domain, problem, outcome = found
     adapted = _finish(case, new_domain, problem, outcome, history, solution.seconds)
     adapted.coarse = solution.coarse
     return adapted
