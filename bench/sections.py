@@ -40,9 +40,12 @@ FLUIDS = {
                 "flow_index": 0.4},
     "herschel-bulkley": {"model": "herschel-bulkley", "yield_stress": 2.0,
                          "consistency": 1.0, "flow_index": 0.5},
+    # shear-thickening: the primal-dual Newton steps are used here too (newton.DualStress)
+    "thickening": {"model": "power-law", "consistency": 1.0, "flow_index": 1.5},
 }
 SHORT = {"newtonian": "Newtonian", "power-law": "power-law n=0.5",
-         "carreau": "Carreau n=0.4", "herschel-bulkley": "HB ty=2 n=0.5"}
+         "carreau": "Carreau n=0.4", "herschel-bulkley": "HB ty=2 n=0.5",
+         "thickening": "power-law n=1.5"}
 #: targets (issue 16): ratio (a) for every model, (b), and the 1M Herschel-Bulkley solve
 TARGET_A = 1.5
 TARGET_B = 60.0
