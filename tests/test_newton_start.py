@@ -1,4 +1,4 @@
-"""The exact start of a 1-D Newton iteration (gnflow.solver.newton.line_start) and the
+"""The exact start of a 1-D Newton iteration (gnflow.solver.line_flow.line_start) and the
 per-mesh objects a repeated 1-D solve shares."""
 
 import math
@@ -10,7 +10,7 @@ from scipy.optimize import brentq
 from gnflow import Case
 from gnflow.geometry import build_domain
 from gnflow.solver.assembly import Problem
-from gnflow.solver.newton import line_start
+from gnflow.solver.line_flow import line_start
 
 
 def _problem(fluid, geometry, drive):

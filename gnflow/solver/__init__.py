@@ -98,7 +98,11 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
     solution.coarse = coarse
     if adaptable and domain.dimension == 1:
         from .adapt import refined
-        solution = refined(case, solution, history)
+        adapted = refined(case, solution, history)
+        if adapted is not None:
+            coarse, seconds = solution.coarse, solution.seconds
+            solution = _finish(case, *adapted, history, seconds)
+            solution.coarse = coarse
     if case.fluid.model.is_yield_stress:
         solution.regularisation = _regularisation_report(
             case, problem, outcome, estimate_regularisation and solution.converged)
@@ -203,7 +207,7 @@ def _finish(case: Case, domain: Domain, problem: Problem, outcome: Outcome, hist
     converged = outcome.converged and finite and residual <= spec.tolerance
     shown = f"{residual:.2e}" if math.isfinite(residual) else "not finite"
     if converged:
-        raw = _raw_residual(problem, u, gradient)
+        raw = problem.relative_residual(u, gradient, beyond_round_off=False)
         if raw > residual:   # the rest is the round-off of the state itself
             shown = f"{raw:.2e}, at the round-off level"
         message = f"converged in {used} iterations (relative residual {shown})"
@@ -227,14 +231,6 @@ def _finish(case: Case, domain: Domain, problem: Problem, outcome: Outcome, hist
     solution.linear_solver = problem.linear.report()
     solution._problem = problem
     return solution
-
-
-def _raw_residual(problem: Problem, u, gradient) -> float:
-    """The relative residual with its round-off share left in (for the message)."""
-    try:
-        return problem.relative_residual(u, gradient, beyond_round_off=False)
-    except TypeError:   # a problem whose residual has no round-off split (slip walls)
-        return problem.relative_residual(u, gradient)
 
 
 def _regularisation_report(case: Case, problem: Problem, outcome: Outcome,

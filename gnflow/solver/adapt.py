@@ -43,7 +43,7 @@ import math
 import numpy as np
 
 from ..geometry import build_domain
-from .newton import flow_curve_rates
+from .line_flow import cusp_rule, flow_curve_rates
 
 #: Estimated relative error of the flow rate (torque) above which the default mesh is
 #: adapted: on the smooth cases above the estimate is at least 0.25 times the error
@@ -57,23 +57,6 @@ MAX_ADAPTED_CELLS = 1200
 
 _XI, _WEIGHTS = np.polynomial.legendre.leggauss(4)
 _TWO_POINTS = np.polynomial.legendre.leggauss(2)
-#: Sub-intervals on each side of a zero-stress point in a cell, as fractions of the
-#: distance to the cell's end: the rates' cusp is integrated on a graded rule.
-_GRADED = np.array([0.0, 1 / 1024, 1 / 256, 1 / 64, 1 / 16, 1 / 4, 1.0])
-
-
-def _cusp_rule(t0: float):
-    """Points and weights on [-1, 1] of a composite Gauss rule graded toward ``t0``."""
-    points, weights = [], []
-    for end in (-1.0, 1.0):
-        length = end - t0
-        if abs(length) < 1e-12:
-            continue
-        a, b = t0 + length * _GRADED[:-1], t0 + length * _GRADED[1:]
-        mid, half = 0.5 * (a + b), 0.5 * (b - a)
-        points.append((mid[:, None] + half[:, None] * _XI).ravel())
-        weights.append((np.abs(half)[:, None] * _WEIGHTS).ravel())
-    return np.concatenate(points), np.concatenate(weights)
 
 
 class RateProfile:
@@ -180,7 +163,7 @@ class RateProfile:
         if plain.size:
             rules.append((plain, *(rule or (_XI, _WEIGHTS))))
         for k in np.flatnonzero(near):
-            xi, weights = _cusp_rule(2 * (self.x0 - lo[k]) / (hi[k] - lo[k]) - 1)
+            xi, weights = cusp_rule(2 * (self.x0 - lo[k]) / (hi[k] - lo[k]) - 1)
             rules.append((np.array([k]), xi, weights))
         return rules
 
@@ -427,7 +410,7 @@ def adapted_at_once(case, problem, start, history):
     usual, :func:`refined`).
 
     For a power law in axial flow at a given pressure gradient the start is the exact
-    solution (:func:`gnflow.solver.newton.line_start`), whose wall flux is exact: the
+    solution (:func:`gnflow.solver.line_flow.line_start`), whose wall flux is exact: the
     estimate needs nothing of a solve on the default mesh (the screen, which does, is
     skipped for these flows anyway). Where it exceeds TRIGGER the flow is solved on the
     adapted mesh only, sparing the default mesh's solve (annulus, n = 0.3: 6 of its 10
@@ -498,9 +481,9 @@ def _solve_adapted(case, model, points, profile, rate_floor, gradient, flow_rate
 
 
 def refined(case, solution, history):
-    """The solution on the adapted mesh, or ``solution`` itself when the default mesh
-    is fine enough, the case is not one this applies to, or the re-solve fails."""
-    from . import _finish
+    """``(domain, problem, outcome)`` of the solve on the adapted mesh, or None when the
+    default mesh of ``solution`` is fine enough, the case is not one this applies to, or
+    the re-solve fails (the caller keeps ``solution`` then)."""
     from .assembly import Problem
 
     model, domain = solution.model, solution.domain
@@ -508,27 +491,21 @@ def refined(case, solution, history):
             and domain.dimension == 1 and domain.degree == 2
             and model.name != "newtonian" and not model.is_yield_stress
             and type(solution.problem()) is Problem and not getattr(case.drive, "slip", None)):
-        return solution
+        return None
     try:
         if not (model.name == "power-law" and domain.kind == "axial") and \
                 SCREEN_MARGIN * screen(solution) <= TRIGGER:
-            return solution
+            return None
         found = estimate(solution)
         if found is None or found[0] <= TRIGGER:
-            return solution
+            return None
         before, profile, indicators = found
         points = adapted_points(profile, indicators)
     except (ArithmeticError, ValueError, FloatingPointError):
-        return solution
+        return None
     if points is None:
-        return solution
-    found = _solve_adapted(case, model, points, profile, solution.problem().rate_floor,
-                           solution.pressure_gradient, case.drive.flow_rate,
-                           solution.iterations, history, domain.cells, before,
-                           interpolate=True)
-    if found is None:
-        return solution
-    new_domain, problem, outcome = found
-    adapted = _finish(case, new_domain, problem, outcome, history, solution.seconds)
-    adapted.coarse = solution.coarse
-    return adapted
+        return None
+    return _solve_adapted(case, model, points, profile, solution.problem().rate_floor,
+                          solution.pressure_gradient, case.drive.flow_rate,
+                          solution.iterations, history, domain.cells, before,
+                          interpolate=True)

@@ -1,0 +1,277 @@
+"""1-D flows from the closed form of their stress field: the flow curve inverted at the
+quadrature points, a Gauss rule graded toward the rate's cusp at a zero-stress point, and
+the exact solution at a given pressure gradient (the start of a 1-D Newton iteration).
+
+Used by :mod:`.newton` (its start and its primal-dual steps) and by :mod:`.adapt` (the
+error estimate of the default 1-D mesh); it imports neither.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .. import rheology
+from .assembly import RATE_FLOOR, Problem
+
+_XI, _WEIGHTS = np.polynomial.legendre.leggauss(4)
+_GAUSS_4 = (_XI, _WEIGHTS)
+_GAUSS_2 = np.polynomial.legendre.leggauss(2)
+#: Sub-intervals on each side of a zero-stress point in a cell, as fractions of the
+#: distance to the cell's end: the rates' cusp is integrated on a graded rule.
+_GRADED = np.array([0.0, 1 / 1024, 1 / 256, 1 / 64, 1 / 16, 1 / 4, 1.0])
+#: The largest rate an exact 1-D start may hold (1/s): the upper end of the range of
+#: scales.invert_flow_curve
+_LARGEST_RATE = math.exp(60.0)
+
+
+def cusp_rule(t0: float):
+    """Points and weights on [-1, 1] of a composite Gauss rule graded toward ``t0``."""
+    points, weights = [], []
+    for end in (-1.0, 1.0):
+        length = end - t0
+        if abs(length) < 1e-12:
+            continue
+        a, b = t0 + length * _GRADED[:-1], t0 + length * _GRADED[1:]
+        mid, half = 0.5 * (a + b), 0.5 * (b - a)
+        points.append((mid[:, None] + half[:, None] * _XI).ravel())
+        weights.append((np.abs(half)[:, None] * _WEIGHTS).ravel())
+    return np.concatenate(points), np.concatenate(weights)
+
+
+def flow_curve_rates(model: rheology.Model, floor: float, stress, guess, tolerance=1e-10,
+                     limit=50):
+    """Rates ``g >= 0`` with ``eta(sqrt(g^2 + floor^2)) g = stress`` (arrays), by Newton on
+    ``log g`` from ``guess``, vectorised over the points not yet converged; None if some
+    point has not converged within ``limit`` iterations (the caller falls back to primal
+    Newton). The flow curve is increasing for every model, so the root is unique."""
+    stress = np.asarray(stress, dtype=float)
+    target = np.log(np.maximum(stress, 1e-300)).ravel()
+    start = np.asarray(guess, dtype=float).ravel()
+    log_rate = np.log(np.where(start > 0, start, max(floor, 1e-300)))
+    active = np.arange(log_rate.size)
+    with np.errstate(all="ignore"):
+        for _ in range(limit):
+            rate = np.exp(log_rate[active])
+            floored = np.sqrt(rate * rate + floor * floor)
+            eta = model.viscosity(floored)
+            slope = 1.0 + model.viscosity_derivative(floored) * rate * rate / (floored * eta)
+            step = (np.log(eta * rate) - target[active]) / np.maximum(slope, 1e-3)
+            log_rate[active] -= np.clip(step, -5.0, 5.0)
+            active = active[~(np.abs(step) < tolerance)]
+            if active.size == 0:
+                return np.exp(log_rate).reshape(stress.shape)
+    return None
+
+
+class _Line:
+    """The dofs of a 1-D domain in order, the Gauss points between consecutive dofs, and
+    the rate and compliance integrals of the flow whose flux is ``q = G A(x) + c``."""
+
+    def __init__(self, problem: Problem, model: rheology.Model, gradient: float):
+        domain = problem.domain
+        self.domain, self.model, self.floor = domain, model, problem.rate_floor
+        self.gradient = gradient if domain.kind == "axial" else 0.0
+        self.x = domain.basis.doflocs[0]
+        self.order = np.argsort(self.x)
+        self.xs = self.x[self.order]
+        self.mid, self.half = 0.5 * (self.xs[:-1] + self.xs[1:]), 0.5 * np.diff(self.xs)
+        self.power = model.name == "power-law"
+        # 4 Gauss points per interval between dofs for a power law (closed-form inversion;
+        # its flux places the zero-stress point, see adapt), 2 for the others: each point
+        # costs an inversion of the flow curve at every evaluation, and as a start the
+        # error of 2 points (h^4 of the rate's 4th derivative) is far below what Newton
+        # corrects in its first step
+        xi, wi = _GAUSS_4 if self.power else _GAUSS_2
+        self.points = (self.mid[:, None] + self.half[:, None] * xi[None, :]).ravel()
+        self.weights = self.half[:, None] * wi[None, :]
+        self.walls = sorted(domain.walls.values(), key=lambda w: w.position)
+        self.guess = None
+
+    def primitive(self, p):
+        """``A(x) = int a dx`` up to a constant."""
+        return math.pi * p * p if self.domain.axisymmetric else p
+
+    def zero_stress_interval(self, c):
+        """(interval, point) where the flux ``G A + c`` vanishes inside the gap, or None."""
+        if self.gradient == 0.0:
+            return None
+        value = -c / self.gradient
+        x0 = (math.sqrt(value / math.pi) if value > 0 else None) if self.domain.axisymmetric \
+            else value
+        xs = self.xs
+        if x0 is None or not xs[0] < x0 < xs[-1]:
+            return None
+        return int(np.clip(np.searchsorted(xs, x0) - 1, 0, self.half.size - 1)), x0
+
+    def _rates(self, stress):
+        """The rates at these stresses (None if the inversion fails)."""
+        model, floor = self.model, self.floor
+        if self.power:
+            return (stress / model.consistency) ** (1.0 / model.flow_index)
+        # the first guess: the viscosity at the flow's rate scale (the floor is
+        # RATE_FLOOR of it), exact on a Newtonian plateau and close near it
+        start = stress / model.viscosity(
+            np.full(stress.shape, floor / RATE_FLOOR if floor > 0 else 1.0))
+        n = self.points.size
+        if self.guess is not None:
+            start[:n] = self.guess
+        rate = flow_curve_rates(model, floor, stress, start)
+        if rate is not None:
+            self.guess = rate[:n]
+        return rate
+
+    def integrals(self, c):
+        """``int u' dx`` and ``int 1 / (a s^2 T) dx`` over each interval between dofs
+        for the flux constant ``c`` (the interval holding the zero-stress point, where
+        the rate has a cusp, by a rule graded toward it), or None."""
+        domain, model, floor = self.domain, self.model, self.floor
+        mid, half, points = self.mid, self.half, self.points
+        cusp = self.zero_stress_interval(c)
+        at = points
+        if cusp is not None:
+            k, x0 = cusp
+            xi_k, w_k = cusp_rule(2 * (x0 - self.xs[k]) / (self.xs[k + 1] - self.xs[k]) - 1)
+            at = np.concatenate([points, mid[k] + half[k] * xi_k])
+        a_, s_ = domain.area_weight(at[None]), domain.rate_factor(at[None])
+        q = self.gradient * self.primitive(at) + c
+        stress = np.abs(q) / (a_ * s_)
+        stress = np.maximum(stress, 1e-14 * np.max(stress, initial=0.0))
+        with np.errstate(all="ignore"):
+            rate = self._rates(stress)
+            if rate is None:
+                return None
+            floored = np.sqrt(rate * rate + floor * floor)
+            tangent = model.viscosity(floored) + \
+                model.viscosity_derivative(floored) * rate * rate / floored
+            compliance = 1.0 / (a_ * s_ * s_ * tangent)
+            slope = np.sign(q) * rate / s_
+        if not (np.all(np.isfinite(slope)) and np.all(np.isfinite(compliance))):
+            return None
+        if np.max(rate, initial=0.0) > _LARGEST_RATE:
+            # beyond the range the summary inverts flow curves on (scales.invert_flow_curve):
+            # the general start decides (a pipe of a Cross fluid with a rate exponent 0.9
+            # and no plateau has wall rates of 1e51 1/s, and ends not converged)
+            return None
+        n = points.size
+        steps = np.sum(self.weights * slope[:n].reshape(self.weights.shape), axis=1)
+        reach = np.sum(self.weights * compliance[:n].reshape(self.weights.shape), axis=1)
+        if cusp is not None:
+            steps[k] = half[k] * float(np.sum(w_k * slope[n:]))
+            reach[k] = half[k] * float(np.sum(w_k * compliance[n:]))
+        return steps, reach
+
+
+def line_start(problem: Problem, model: rheology.Model, gradient: float):
+    """The exact solution of a 1-D flow at a given pressure gradient, at the dofs (the
+    start of its Newton iteration; None if it cannot be formed).
+
+    The flux ``q = a s tau`` (area weight ``a``, rate factor ``s``, signed shear stress
+    ``tau``) obeys ``q' = G a`` in every 1-D flow (``G = 0`` for rotational flow), so
+    ``q = G A(x) + c`` with ``A = int a dx`` and one constant ``c``; the rate follows
+    from the inverse flow curve, ``u' = sign(q) H(|q| / (a s)) / s``, with the rate
+    floor of the problem. A pipe has no flux on its axis (``c = 0``); between two walls
+    ``c`` is the root of the speed difference ``int u' dx = u_2 - u_1``, increasing in
+    ``c`` with slope ``int 1 / (a s^2 T)`` (``T`` the flow curve's tangent), found by
+    Newton steps kept inside a bracket. The rate is integrated between consecutive dofs
+    by 4-point Gauss rules (graded toward the zero-stress point, where the rate has a
+    cusp, in the interval holding it). The interpolant of the exact solution is within the
+    discretisation error of the discrete one, so Newton converges from it in a step or
+    two (the Picard steps of the general start are not needed)."""
+    line = _Line(problem, model, gradient)
+    walls = line.walls
+    if len(walls) == 1:
+        if not (line.domain.axisymmetric and line.xs[0] == 0.0):
+            return None
+        c = 0.0
+        found = line.integrals(c)
+        if found is None:
+            return None
+        u_sorted = np.concatenate([[0.0], np.cumsum(found[0])])
+        u_sorted += walls[0].value - u_sorted[-1]
+    else:
+        found = _flux_constant(line)
+        if found is None:
+            return None
+        c, (steps, reach) = found
+        u_sorted = np.concatenate([[0.0], np.cumsum(steps)]) + walls[0].value
+        # what is left of the mismatch, spread as the flux correction would spread it
+        reach = np.concatenate([[0.0], np.cumsum(reach)])
+        u_sorted += (walls[1].value - u_sorted[-1]) * reach / reach[-1]
+    x = line.x
+    u = np.empty_like(x)
+    u[line.order] = u_sorted
+    for wall in line.domain.walls.values():
+        u[wall.dofs] = wall.value
+    if not np.all(np.isfinite(u)):
+        return None
+    # the flux at the outermost wall, exact: for the error estimate of the default mesh
+    # (gnflow.solver.adapt.adapted_at_once), which then needs no solve on it
+    problem.line_start_flux = (u, line.gradient * line.primitive(walls[-1].position) + c)
+    return u
+
+
+def _flux_constant(line: _Line):
+    """``(c, integrals(c))`` for the flux constant ``c`` that meets both walls' speeds, or
+    None: from the Newtonian ``c``, Newton steps, bisecting once the root is bracketed
+    and a step leaves the bracket."""
+    model, walls, gradient = line.model, line.walls, line.gradient
+    wanted = walls[1].value - walls[0].value
+    points = line.points
+    s_all = line.domain.rate_factor(points[None])
+    a_all = line.domain.area_weight(points[None])
+    # the flux of the pressure load across the gap, and that of the wall motion's
+    # shear at the model's stress
+    shear = abs(wanted) * float(np.max(s_all)) / float(line.xs[-1] - line.xs[0])
+    with np.errstate(all="ignore"):
+        moving = float(np.max(a_all * s_all)) * float(model.stress(np.array([shear]))[0])
+    scale = max(abs(gradient) * float(np.ptp(line.primitive(points))),
+                moving if math.isfinite(moving) else 0.0)
+    if not scale > 0:
+        return None
+
+    def mismatch(c):
+        found = line.integrals(c)
+        if found is None:
+            return None
+        return float(np.sum(found[0])) - wanted, found
+
+    # the first c: the Newtonian one (with the model's viscosity at the wall motion's
+    # shear), in closed form as the speed difference is linear in c for it
+    with np.errstate(all="ignore"):
+        mu = float(model.viscosity(np.array([max(shear, 1e-300)]))[0])
+    mu = mu if math.isfinite(mu) and mu > 0 else 1.0
+    inverse = line.weights.ravel() / (a_all * s_all * s_all)
+    c = (wanted * mu - gradient * float(np.sum(inverse * line.primitive(points)))) / \
+        float(np.sum(inverse))
+    f = mismatch(c)
+    if f is None or not math.isfinite(c):
+        return None
+    low, high = -math.inf, math.inf
+    # the mismatch left is spread by the caller to first order: as a start, c to 1e-7 is
+    # as good as exact (Newton's steps are the same), and each evaluation inverts the
+    # flow curve at every point; a power law's inversion is closed-form and its c
+    # is found to round-off (it places the zero-stress point, see adapt)
+    target = (1e-13 if line.power else 1e-7) * max(abs(walls[0].value), abs(walls[1].value),
+                                                   float(np.sum(np.abs(f[1][0]))), 1e-300)
+    for _ in range(60):
+        if abs(f[0]) <= target:
+            return c, f[1]
+        if f[0] > 0:
+            high = c
+        else:
+            low = c
+        slope = float(np.sum(f[1][1]))
+        step = c - f[0] / slope if slope > 0 else math.nan
+        if not (math.isfinite(step) and low < step < high):
+            if not (math.isfinite(low) and math.isfinite(high)):
+                return None
+            step = 0.5 * (low + high)
+        c = step
+        f = mismatch(c)
+        if f is None:
+            return None
+        if math.isfinite(high - low) and high - low <= 1e-15 * max(abs(low), abs(high)):
+            return c, f[1]
+    return None
