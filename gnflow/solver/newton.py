@@ -166,7 +166,14 @@ class DualStress:
         be found or are not finite."""
         p = self.problem
         size = np.sqrt(np.sum(self.tau * self.tau, axis=0))
-        rate = flow_curve_rates(p.model, p.rate_floor, size, self.rate)
+        guess = self.rate
+        if p.model.name == "power-law":
+            # the rates without the floor, in closed form: where the floor is negligible
+            # (all but the points of vanishing stress) the inversion ends in one step
+            with np.errstate(all="ignore"):
+                closed = (size / p.model.consistency) ** (1.0 / p.model.flow_index)
+            guess = np.where(np.isfinite(closed) & (closed > 0), closed, guess)
+        rate = flow_curve_rates(p.model, p.rate_floor, size, guess)
         if rate is None:
             return None
         eta, along = self._flow_curve(rate)
