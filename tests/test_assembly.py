@@ -108,3 +108,14 @@ def test_plan_refuses_a_non_lagrange_element():
     basis = Basis(MeshTri(), ElementTriMorley())
     with pytest.raises(TypeError, match="ElementTriMorley"):
         AssemblyPlan(basis, np.arange(basis.N))
+
+
+def test_a_plan_with_no_free_dofs_builds_and_solves():
+    """One P1 cell of a slit has only wall dofs: an empty sparsity pattern."""
+    from gnflow import Case, solve
+    case = Case.from_dict({"fluid": {"model": "power-law", "consistency": 1.0, "flow_index": 0.5},
+                           "geometry": {"shape": "slit", "gap": 1.0},
+                           "drive": {"pressure_gradient": -1.0},
+                           "mesh": {"cells": 1, "degree": 1}})
+    solution = solve(case)
+    assert solution.converged and solution.domain.dofs == 2

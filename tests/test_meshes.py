@@ -88,6 +88,28 @@ def test_interpolation_between_meshes_is_accurate_and_never_raises():
     assert np.max(np.abs(values - fine.u)) < 2e-3 * scale
 
 
+def test_interpolation_on_nested_straight_meshes_is_exact_for_p2_fields():
+    """On straight triangles (a rectangle) the barycentric coordinates are the reference
+    ones: a P2 field of the coarse mesh is reproduced at every dof of the nested fine
+    mesh, as scikit-fem's own point evaluation gives it."""
+    from gnflow.solver.solution import Solution
+    case = Case.from_dict({"fluid": {"model": "newtonian", "viscosity": 1.0},
+                           "geometry": {"shape": "rectangle", "width": 2.0, "height": 1.0},
+                           "drive": {"pressure_gradient": -1.0},
+                           "mesh": {"cells": 6, "degree": 2}})
+    coarse_domain, fine_domain = build_domain(case, 6), build_domain(case, 12)
+    x, y = coarse_domain.basis.doflocs
+    field = 1.0 + x * x - 3.0 * x * y + 0.5 * y * y     # in the P2 space
+    coarse = Solution.__new__(Solution)
+    coarse.domain, coarse.u = coarse_domain, field
+    values = interpolated(coarse, fine_domain)
+    fx, fy = fine_domain.basis.doflocs
+    expected = 1.0 + fx * fx - 3.0 * fx * fy + 0.5 * fy * fy
+    assert np.max(np.abs(values - expected)) < 1e-12
+    probed = coarse_domain.basis.probes(fine_domain.basis.doflocs) @ field
+    assert np.max(np.abs(values - probed)) < 1e-12
+
+
 def test_every_curved_element_has_a_positive_jacobian_and_walls_are_exact():
     domain = build_domain(_annulus_case(0.95, 0.99, cells=8))
     mapping = domain.basis.mapping

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+from skfem import ElementTriP1
 
 from ..geometry import Domain, reference_coordinates
 from .solution import Solution
@@ -73,8 +74,13 @@ def interpolated(coarse: Solution, domain: Domain) -> np.ndarray:
         todo = todo[best[todo] < -INSIDE]
         if todo.size == 0:
             break
-    ref, converged = reference_coordinates(mesh, x[:, :, np.newaxis], cells)
-    ref = np.where(converged[np.newaxis], ref, straight[:, :, np.newaxis])[:, :, 0]
+    if mesh.elem is ElementTriP1:
+        # straight (affine) triangles: the barycentric coordinates are the reference ones
+        # (1M fine dofs: the inverse-map iteration cost 0.7 s of 3 s)
+        ref = straight
+    else:
+        ref, converged = reference_coordinates(mesh, x[:, :, np.newaxis], cells)
+        ref = np.where(converged[np.newaxis], ref, straight[:, :, np.newaxis])[:, :, 0]
     values = np.zeros(x.shape[1])
     for local in range(basis.Nbfun):
         phi, _ = basis.elem.lbasis(ref, local)
