@@ -65,6 +65,60 @@ def flow_curve_rates(model: rheology.Model, floor: float, stress, guess, toleran
     return None
 
 
+def _plastic(model: rheology.Model, rate):
+    """The plastic part of a regularised yield-stress flow curve at ``rate``."""
+    m = model.regularisation_parameter
+    if model.regularisation == "papanastasiou":
+        return -model.yield_stress * np.expm1(-m * rate)
+    return model.yield_stress * np.minimum(rate / m, 1.0)
+
+
+def _plastic_inverse(model: rheology.Model, stress):
+    """The rate at which the plastic part reaches ``stress``; inf within 1e-9 of the yield
+    stress and above, where a stress known to round-off no longer fixes the rate (the
+    Papanastasiou part saturates: ``P(16 / s) = tau_y`` to round-off for ``m = 80 s``)."""
+    m = model.regularisation_parameter
+    fraction = np.minimum(np.maximum(stress, 0.0) / model.yield_stress, 1.0)
+    with np.errstate(all="ignore"):
+        rate = -np.log1p(-fraction) / m if model.regularisation == "papanastasiou" \
+            else fraction * m
+    return np.where(fraction < 1.0 - 1e-9, rate, np.inf)
+
+
+def _viscous_inverse(model: rheology.Model, stress):
+    """The rate at which the viscous part ``K g^n`` reaches ``stress``."""
+    return (np.maximum(stress, 0.0) / model.consistency) ** (1.0 / model.flow_index)
+
+
+def yield_stress_bounds(model: rheology.Model, stress):
+    """(lower, upper) bounds of the rate on a regularised yield-stress flow curve at
+    ``stress`` (arrays; without the rate floor): a start for :func:`flow_curve_rates`.
+
+    The flow curve is ``tau = P(g) + V(g)``, a plastic part ``P`` rising to the yield
+    stress and a viscous part ``V = K g^n``, both increasing. At the root ``g`` neither
+    part exceeds ``tau`` and one is at least ``tau / 2``, so ``min(P^-1(tau/2),
+    V^-1(tau/2)) <= g <= min(P^-1(tau), V^-1(tau))``; ``V(g) >= tau - tau_y`` (the
+    unregularised rate is a lower bound). Any bounds ``l <= g <= u`` tighten to
+    ``V^-1(tau - P(u)) <= g <= V^-1(tau - P(l))`` and the same with ``P`` and ``V``
+    exchanged: one round of that, with both parts, leaves bounds within a few per cent
+    of each other over most of the curve (12 % where both parts are linear, a bi-viscous
+    plug; decades only at the knee), where the start ``stress / eta`` at the flow's rate
+    scale is off by decades in the plug and at its edge."""
+    stress = np.asarray(stress, dtype=float)
+    with np.errstate(all="ignore"):
+        upper = np.minimum(_plastic_inverse(model, stress), _viscous_inverse(model, stress))
+        half = 0.5 * stress
+        lower = np.maximum(np.minimum(_plastic_inverse(model, half), _viscous_inverse(model, half)),
+                           _viscous_inverse(model, stress - model.yield_stress))
+        upper = np.minimum.reduce([
+            upper, _viscous_inverse(model, stress - _plastic(model, lower)),
+            _plastic_inverse(model, stress - model.consistency * lower ** model.flow_index)])
+        lower = np.maximum.reduce([
+            lower, _viscous_inverse(model, stress - _plastic(model, upper)),
+            _plastic_inverse(model, stress - model.consistency * upper ** model.flow_index)])
+    return np.minimum(lower, upper), upper
+
+
 class _Line:
     """The dofs of a 1-D domain in order, the Gauss points between consecutive dofs, and
     the rate and compliance integrals of the flow whose flux is ``q = G A(x) + c``."""
@@ -88,6 +142,9 @@ class _Line:
         self.weights = self.half[:, None] * wi[None, :]
         self.walls = sorted(domain.walls.values(), key=lambda w: w.position)
         self.guess = None
+        # the unregularised flow curve of a yield-stress model (closed-form rates; no
+        # floor): a first flux constant, see _flux_constant
+        self.ideal = False
 
     def primitive(self, p):
         """``A(x) = int a dx`` up to a constant."""
@@ -110,13 +167,22 @@ class _Line:
         model, floor = self.model, self.floor
         if self.power:
             return (stress / model.consistency) ** (1.0 / model.flow_index)
-        # the first guess: the viscosity at the flow's rate scale (the floor is
-        # RATE_FLOOR of it), exact on a Newtonian plateau and close near it
-        start = stress / model.viscosity(
-            np.full(stress.shape, floor / RATE_FLOOR if floor > 0 else 1.0))
+        # the first guess: for a yield-stress model within its bounds (the previous
+        # evaluation's rates, clipped to them), else the viscosity at the flow's rate
+        # scale (the floor is RATE_FLOOR of it), exact on a Newtonian plateau and close
         n = self.points.size
-        if self.guess is not None:
-            start[:n] = self.guess
+        if model.is_yield_stress:
+            lower, upper = yield_stress_bounds(model, stress)
+            with np.errstate(all="ignore"):
+                start = np.sqrt(lower * upper)
+            if self.guess is not None:
+                start[:n] = self.guess
+            start = np.clip(start, lower, upper)
+        else:
+            start = stress / model.viscosity(
+                np.full(stress.shape, floor / RATE_FLOOR if floor > 0 else 1.0))
+            if self.guess is not None:
+                start[:n] = self.guess
         rate = flow_curve_rates(model, floor, stress, start)
         if rate is not None:
             self.guess = rate[:n]
@@ -139,13 +205,22 @@ class _Line:
         stress = np.abs(q) / (a_ * s_)
         stress = np.maximum(stress, 1e-14 * np.max(stress, initial=0.0))
         with np.errstate(all="ignore"):
-            rate = self._rates(stress)
-            if rate is None:
-                return None
-            floored = np.sqrt(rate * rate + floor * floor)
-            tangent = model.viscosity(floored) + \
-                model.viscosity_derivative(floored) * rate * rate / floored
-            compliance = 1.0 / (a_ * s_ * s_ * tangent)
+            if self.ideal:
+                # rate ((tau - tau_y)+ / K)^(1/n); 1 / T = g / (n (tau - tau_y)), and 0 in
+                # the plug
+                excess = np.maximum(stress - model.yield_stress, 0.0)
+                rate = (excess / model.consistency) ** (1.0 / model.flow_index)
+                yielded = excess > 0
+                compliance = np.where(yielded, rate / (model.flow_index * np.where(
+                    yielded, excess, 1.0)), 0.0) / (a_ * s_ * s_)
+            else:
+                rate = self._rates(stress)
+                if rate is None:
+                    return None
+                floored = np.sqrt(rate * rate + floor * floor)
+                tangent = model.viscosity(floored) + \
+                    model.viscosity_derivative(floored) * rate * rate / floored
+                compliance = 1.0 / (a_ * s_ * s_ * tangent)
             slope = np.sign(q) * rate / s_
         if not (np.all(np.isfinite(slope)) and np.all(np.isfinite(compliance))):
             return None
@@ -214,8 +289,9 @@ def line_start(problem: Problem, model: rheology.Model, gradient: float):
 
 def _flux_constant(line: _Line):
     """``(c, integrals(c))`` for the flux constant ``c`` that meets both walls' speeds, or
-    None: from the Newtonian ``c``, Newton steps, bisecting once the root is bracketed
-    and a step leaves the bracket."""
+    None: from the Newtonian ``c`` (for a yield-stress model, from the root for its
+    unregularised flow curve), Newton steps, bisecting once the root is bracketed and a
+    step leaves the bracket (:func:`_root`)."""
     model, walls, gradient = line.model, line.walls, line.gradient
     wanted = walls[1].value - walls[0].value
     points = line.points
@@ -245,16 +321,38 @@ def _flux_constant(line: _Line):
     inverse = line.weights.ravel() / (a_all * s_all * s_all)
     c = (wanted * mu - gradient * float(np.sum(inverse * line.primitive(points)))) / \
         float(np.sum(inverse))
-    f = mismatch(c)
-    if f is None or not math.isfinite(c):
+    if not math.isfinite(c):
         return None
-    low, high = -math.inf, math.inf
+    if model.is_yield_stress:
+        # first the c of the unregularised flow curve, whose rates are closed-form: the
+        # regularised c is within the regularisation error of it, a step or two away,
+        # where from the Newtonian c it took four evaluations of the regularised rates
+        # (bench/one_solve.py annulus, Bingham and Herschel-Bulkley); a gap the ideal
+        # fluid does not shear (no root, or a flat mismatch) keeps the Newtonian c
+        line.ideal = True
+        f = mismatch(c)
+        found = _root(mismatch, c, f, walls, 1e-6) if f is not None else None
+        line.ideal = False
+        if found is not None and math.isfinite(found[0]):
+            c = found[0]
+    f = mismatch(c)
+    if f is None:
+        return None
     # the mismatch left is spread by the caller to first order: as a start, c to 1e-7 is
     # as good as exact (Newton's steps are the same), and each evaluation inverts the
     # flow curve at every point; a power law's inversion is closed-form and its c
     # is found to round-off (it places the zero-stress point, see adapt)
-    target = (1e-13 if line.power else 1e-7) * max(abs(walls[0].value), abs(walls[1].value),
-                                                   float(np.sum(np.abs(f[1][0]))), 1e-300)
+    return _root(mismatch, c, f, walls, 1e-13 if line.power else 1e-7)
+
+
+def _root(mismatch, c, f, walls, relative):
+    """``(c, integrals(c))`` at the root of ``mismatch`` (``(value, integrals)`` of a
+    flux constant) from ``c`` with ``f = mismatch(c)``, to ``relative`` of the speeds,
+    or None: Newton steps, bisecting once the root is bracketed and a step leaves the
+    bracket."""
+    low, high = -math.inf, math.inf
+    target = relative * max(abs(walls[0].value), abs(walls[1].value),
+                            float(np.sum(np.abs(f[1][0]))), 1e-300)
     for _ in range(60):
         if abs(f[0]) <= target:
             return c, f[1]
