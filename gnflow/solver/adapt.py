@@ -426,21 +426,29 @@ def adapted_at_once(case, problem, start, history):
             and case.drive.flow_rate is None and known is not None and known[0] is u):
         return None
     try:
-        found = estimate(_Start(problem, u, gradient), known[1])
         # below the trigger the estimate is formed again from the solve on the default
         # mesh (refined), whose flux it was tuned with: near the zero-stress point of a
         # shear-thickening flow the two differ (slit, n = 1.5, moving wall: this one
         # below TRIGGER, that one above)
-        if found is None or found[0] <= TRIGGER:
-            return None
-        before, profile, indicators = found
-        points = adapted_points(profile, indicators)
+        chosen = _adapted_mesh(estimate(_Start(problem, u, gradient), known[1]))
     except (ArithmeticError, ValueError, FloatingPointError):
         return None
-    if points is None:
+    if chosen is None:
         return None
+    before, profile, points = chosen
     return _solve_adapted(case, model, points, profile, problem.rate_floor, gradient, None,
                           0, history, domain.cells, before, interpolate=False)
+
+
+def _adapted_mesh(found):
+    """``(estimate, profile, points)`` of the adapted mesh an error estimate ``found``
+    (``(estimate, profile, indicators)`` or None) asks for, or None where it is at most
+    TRIGGER or no mesh can be formed."""
+    if found is None or found[0] <= TRIGGER:
+        return None
+    before, profile, indicators = found
+    points = adapted_points(profile, indicators)
+    return None if points is None else (before, profile, points)
 
 
 def _solve_adapted(case, model, points, profile, rate_floor, gradient, flow_rate, done,
@@ -496,15 +504,12 @@ def refined(case, solution, history):
         if not (model.name == "power-law" and domain.kind == "axial") and \
                 SCREEN_MARGIN * screen(solution) <= TRIGGER:
             return None
-        found = estimate(solution)
-        if found is None or found[0] <= TRIGGER:
-            return None
-        before, profile, indicators = found
-        points = adapted_points(profile, indicators)
+        chosen = _adapted_mesh(estimate(solution))
     except (ArithmeticError, ValueError, FloatingPointError):
         return None
-    if points is None:
+    if chosen is None:
         return None
+    before, profile, points = chosen
     return _solve_adapted(case, model, points, profile, solution.problem().rate_floor,
                           solution.pressure_gradient, case.drive.flow_rate,
                           solution.iterations, history, domain.cells, before,
