@@ -44,7 +44,7 @@ from .linear import DIRECT_LIMIT, DIRECT_LIMIT_2D, LinearSolver  # noqa: F401
 from .newton import initial_state, newton, picard, picard_step  # noqa: F401
 from .scales import (REGULARISATION_SHARPNESS, characteristic_rate, default_regularisation,  # noqa: F401
                      expected_to_yield, invert_flow_curve, stopping_warnings)
-from .sequencing import SEQUENCING_LIMIT, interpolated
+from .sequencing import SEQUENCE_FLOOR, SEQUENCING_LIMIT, interpolated
 from .solution import Iteration, Solution, _History  # noqa: F401
 
 #: Unknowns above which a regularised section's regularisation error is estimated on the
@@ -53,9 +53,11 @@ HALF_MESH_ESTIMATE_LIMIT = SEQUENCING_LIMIT
 
 
 def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
-          estimate_regularisation: bool = True, progress=None) -> Solution:
+          estimate_regularisation: bool = True, progress=None, *,
+          sequence_level: bool = False) -> Solution:
     """Solve a case; returns a :class:`Solution` (converged or not, never raises for
-    non-convergence).
+    non-convergence). ``sequence_level``: the solve is a coarse level of a grid
+    sequence, itself sequenced down to SEQUENCE_FLOOR unknowns (internal).
 
     >>> from gnflow.case import Case
     >>> case = Case.from_dict({"fluid": {"model": "newtonian", "viscosity": 1.0},
@@ -76,7 +78,8 @@ def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
     started = time.perf_counter()
     adaptable = cells is None and domain is None   # the default 1-D mesh may be adapted
     domain = domain or build_domain(case, cells)
-    coarse = _sequenced_coarse(case, domain, progress)
+    coarse = _sequenced_coarse(case, domain, progress,
+                               SEQUENCE_FLOOR if sequence_level else SEQUENCING_LIMIT)
     history = _History(progress)   # progress(entry) is called on every iteration
     problem, start, soft_start, wanted_for = _setup(case, domain, coarse)
     early = None
@@ -129,17 +132,17 @@ def _is_helical(case: Case) -> bool:
         getattr(drive, "inner_angular_speed", 0.0) or getattr(drive, "outer_angular_speed", 0.0))
 
 
-def _sequenced_coarse(case: Case, domain: Domain, progress) -> Solution | None:
-    """A converged solve on a mesh half as fine, as the start of a large 2-D nonlinear
-    solve (grid sequencing), or None."""
+def _sequenced_coarse(case: Case, domain: Domain, progress, limit: int) -> Solution | None:
+    """A converged solve on a mesh half as fine, as the start of a 2-D nonlinear solve
+    of more than ``limit`` unknowns (grid sequencing), or None."""
     if not (domain.dimension == 2 and domain.shape in ("rectangle", "annulus")
-            and domain.dofs > SEQUENCING_LIMIT and domain.cells >= 4
+            and domain.dofs > limit and domain.cells >= 4
             and case.fluid.model.name != "newtonian"):   # a linear problem: one solve
         return None
     # the coarse solution is only a start: a loose tolerance there suffices
     rough = replace(case, solver=replace(case.solver, tolerance=max(case.solver.tolerance, 1e-6)))
     coarse = solve(rough, cells=domain.cells // 2, estimate_regularisation=False,
-                   progress=progress)
+                   progress=progress, sequence_level=True)
     return coarse if coarse.converged else None
 
 

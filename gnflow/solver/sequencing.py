@@ -8,7 +8,15 @@ from skfem import ElementTriP1
 from ..geometry import Domain, reference_coordinates
 from .solution import Solution
 
+#: Unknowns above which a 2-D nonlinear solve starts from a solve on the mesh half as fine
 SEQUENCING_LIMIT = 20_000
+#: Unknowns above which a level of a grid sequence starts from a coarser level in turn.
+#: The coarsest level is where the regularisation continuation and the start from the
+#: stress-consistent state (several direct solves) happen, so it pays to make it small:
+#: on a 160k-unknown duct (Herschel-Bulkley) the levels below the fine one took 1.6 s
+#: from a 10k-unknown coarsest level and 1.1 s from a 2.6k one (7 Newton steps there,
+#: 3 on the 10k level instead of 7).
+SEQUENCE_FLOOR = 5_000
 
 # coarse triangles (nearest by centroid) searched for each fine dof: long thin cells
 # put the containing triangle's centroid farther away than several neighbours' centroids
