@@ -88,16 +88,18 @@ def test_interpolation_between_meshes_is_accurate_and_never_raises():
     assert np.max(np.abs(values - fine.u)) < 2e-3 * scale
 
 
-def test_interpolation_on_nested_straight_meshes_is_exact_for_p2_fields():
+@pytest.mark.parametrize("fine_cells", [12, 13])
+def test_interpolation_on_nested_straight_meshes_is_exact_for_p2_fields(fine_cells):
     """On straight triangles (a rectangle) the barycentric coordinates are the reference
-    ones: a P2 field of the coarse mesh is reproduced at every dof of the nested fine
-    mesh, as scikit-fem's own point evaluation gives it."""
+    ones: a P2 field of the coarse mesh is reproduced at every dof of the fine mesh, as
+    scikit-fem's own point evaluation gives it; on a nested fine mesh (12 cells) by the
+    parent of each fine triangle, on one that is not nested (13) by the search."""
     from gnflow.solver.solution import Solution
     case = Case.from_dict({"fluid": {"model": "newtonian", "viscosity": 1.0},
                            "geometry": {"shape": "rectangle", "width": 2.0, "height": 1.0},
                            "drive": {"pressure_gradient": -1.0},
                            "mesh": {"cells": 6, "degree": 2}})
-    coarse_domain, fine_domain = build_domain(case, 6), build_domain(case, 12)
+    coarse_domain, fine_domain = build_domain(case, 6), build_domain(case, fine_cells)
     x, y = coarse_domain.basis.doflocs
     field = 1.0 + x * x - 3.0 * x * y + 0.5 * y * y     # in the P2 space
     coarse = Solution.__new__(Solution)
@@ -108,6 +110,14 @@ def test_interpolation_on_nested_straight_meshes_is_exact_for_p2_fields():
     assert np.max(np.abs(values - expected)) < 1e-12
     probed = coarse_domain.basis.probes(fine_domain.basis.doflocs) @ field
     assert np.max(np.abs(values - probed)) < 1e-12
+    # the parents of the fine triangles hold every dof exactly when the meshes nest
+    from scipy.spatial import cKDTree
+    from gnflow.solver.sequencing import _by_parents
+    mesh, n = coarse_domain.basis.mesh, fine_domain.basis.N
+    tree = cKDTree(mesh.p[:, mesh.t].mean(axis=1).T)
+    left = _by_parents(fine_domain, mesh.p, mesh.t, tree, np.full(n, -np.inf),
+                       np.zeros(n, dtype=np.int64), np.zeros((2, n)))
+    assert (left.size == 0) == (fine_cells == 12)
 
 
 def test_every_curved_element_has_a_positive_jacobian_and_walls_are_exact():
