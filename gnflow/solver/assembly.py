@@ -336,9 +336,12 @@ class Problem:
                 area_weight, rate_factor = np.ones(basis.dx.shape), np.ones(basis.dx.shape)
             # int a v, as asm(area_integral, ...) gives it, without the form machinery
             # (a 1-D case is solved in milliseconds; the general assembly costs several)
-            values = np.array([basis.basis[i][0].value for i in range(basis.Nbfun)])
-            load = np.bincount(basis.element_dofs.ravel(),
-                               weights=np.sum(values * (area_weight * basis.dx), axis=2).ravel(),
+            # element by element, one basis function at a time: stacking the basis values
+            # first copied them all (1M unknowns: 0.99 s for the whole set-up)
+            weight = area_weight * basis.dx
+            local = np.array([np.einsum("eq,eq->e", basis.basis[i][0].value, weight)
+                              for i in range(basis.Nbfun)])
+            load = np.bincount(basis.element_dofs.ravel(), weights=local.ravel(),
                                minlength=basis.N)
             parts = (area_weight, rate_factor, load, fixed,
                      _complement(fixed, basis.N))
