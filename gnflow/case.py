@@ -40,6 +40,7 @@ from __future__ import annotations
 
 import copy
 import difflib
+import functools
 import math
 import tomllib
 from dataclasses import dataclass, field
@@ -141,10 +142,32 @@ def _check_keys(table: dict, allowed, where: str) -> None:
                 f"{'[' + where + ']' if where else 'the top level'} takes: {choices}"))
 
 
+def _within_size(mapping: dict) -> bool:
+    """Whether :func:`_check_size` passes ``mapping``: no table or array nested
+    MAX_DEPTH deep and at most MAX_ITEMS values, counted level by level without the key
+    paths that only an error needs (a study checks every grid point's case)."""
+    level, count, depth = [mapping], 0, 0
+    while level:
+        count += len(level)
+        if count > MAX_ITEMS:
+            return False
+        below = []
+        for value in level:
+            if isinstance(value, (dict, list)):
+                if depth >= MAX_DEPTH:
+                    return False
+                below.extend(value.values() if isinstance(value, dict) else value)
+        level, depth = below, depth + 1
+    return True
+
+
 def _check_size(mapping: dict) -> None:
     """Refuse input nested deeper than MAX_DEPTH or holding more than MAX_ITEMS values,
     walking it without recursion (a document nested a thousand deep must not end in a
     RecursionError, nor be copied)."""
+    if _within_size(mapping):
+        return
+    # the walk that names the first offending key
     stack, count = [((), mapping)], 0
     while stack:
         path, value = stack.pop()
@@ -351,8 +374,14 @@ class Case:
     heat: object = None               # a gnflow.solver.heat.HeatSpec, from [heat]
 
     @classmethod
-    def from_dict(cls, mapping: dict, source: str | Path | None = None) -> "Case":
-        """Build a case from the same structure as the TOML file."""
+    def from_dict(cls, mapping: dict, source: str | Path | None = None, *,
+                  copy_raw: bool = True) -> "Case":
+        """Build a case from the same structure as the TOML file.
+
+        The case keeps a deep copy of ``mapping`` as :attr:`raw`; ``copy_raw=False`` keeps
+        ``mapping`` itself, for a caller that built it for this case alone and does not
+        change it afterwards (a study's grid point: the copy would be its second).
+        """
         if not isinstance(mapping, dict):
             raise CaseError("case", mapping, "a table of sections")
         _check_size(mapping)
@@ -397,7 +426,7 @@ class Case:
                     f"[heat]: viscous heating is not yet solved together with "
                     f"{' or '.join(combined)}; leave one of them out"))
         return cls(title, fluid, geometry, drive, mesh, solver, output, source,
-                   copy.deepcopy(mapping), notices, heat)
+                   copy.deepcopy(mapping) if copy_raw else mapping, notices, heat)
 
     def with_value(self, dotted_key: str, value) -> "Case":
         """A new case with one dotted key (e.g. ``"fluid.flow_index"``) set to ``value``."""
@@ -872,6 +901,25 @@ def _section_cells(geometry: GeometrySpec, cells: int) -> float:
     return float(cells)
 
 
+@functools.lru_cache(maxsize=None)
+def _dimensional_keys(shape: str, model: str) -> tuple[tuple[str, str, str], ...]:
+    """``(section, key, dimension)`` of the dimensional keys a case of this shape and
+    model may give as bare numbers, in the order their notices are listed."""
+    dimensional = {"geometry": {k: d for k, d in GEOMETRY_KEYS[shape].items() if d},
+                   "fluid": {k: d for k, (d, _) in MODEL_KEYS[model].items()
+                             if d != "dimensionless"},
+                   "drive": {"pressure_gradient": "pressure_gradient",
+                             "flow_rate": "flow_rate_per_width" if shape == "slit"
+                             else "flow_rate",
+                             "inner_angular_speed": "angular_speed",
+                             "outer_angular_speed": "angular_speed"}}
+    dimensional["fluid"].update(density="density", temperature="temperature",
+                                reference_temperature="temperature",
+                                activation_energy="molar_energy")
+    return tuple((section, key, dimension) for section, keys in dimensional.items()
+                 for key, dimension in keys.items())
+
+
 def _bare_number_notices(mapping: dict, fluid: FluidSpec, geometry: GeometrySpec):
     """A notice for each bare number (read as SI) outside the usual range of its kind.
 
@@ -879,19 +927,8 @@ def _bare_number_notices(mapping: dict, fluid: FluidSpec, geometry: GeometrySpec
     number or a string; only bare numbers are judged: a value with units says what the
     user meant.
     """
-    dimensional = {"geometry": {k: d for k, d in GEOMETRY_KEYS[geometry.shape].items() if d},
-                   "fluid": {k: d for k, (d, _) in MODEL_KEYS[fluid.name].items()
-                             if d != "dimensionless"},
-                   "drive": {"pressure_gradient": "pressure_gradient",
-                             "flow_rate": "flow_rate_per_width" if geometry.shape == "slit"
-                             else "flow_rate",
-                             "inner_angular_speed": "angular_speed",
-                             "outer_angular_speed": "angular_speed"}}
-    dimensional["fluid"].update(density="density", temperature="temperature",
-                                reference_temperature="temperature",
-                                activation_energy="molar_energy")
     checked = [(f"{section}.{key}", mapping[section][key], dimension)
-               for section, keys in dimensional.items() for key, dimension in keys.items()
+               for section, key, dimension in _dimensional_keys(geometry.shape, fluid.name)
                if key in mapping.get(section, {})]
     walls = mapping.get("drive", {}).get("wall_speed", {})
     checked += [(f"drive.wall_speed.{shown_key(name)}", speed, "velocity")

@@ -32,6 +32,7 @@ from __future__ import annotations
 import copy
 import csv
 import difflib
+import functools
 import itertools
 import json
 import math
@@ -46,7 +47,7 @@ import numpy as np
 
 from .case import GEOMETRY_KEYS, MODEL_KEYS, Case, assign, load_case
 from .errors import CaseError
-from .units import quantity, si_unit
+from .units import quantity, remembering_texts, si_unit
 
 #: the SI unit of each summary number a study tabulates; ``None`` entries are left out
 #: (mesh and timing figures, which describe the run rather than the design)
@@ -269,7 +270,8 @@ def build_case(raw: dict, keys: tuple, values: tuple, source=None) -> Case:
     mapping = _plain_copy(raw)
     for key, value in zip(keys, values):
         assign(mapping, key, value)
-    return Case.from_dict(mapping, source)
+    # the mapping is this case's own: the case keeps it rather than a copy of it
+    return Case.from_dict(mapping, source, copy_raw=False)
 
 
 # --------------------------------------------------------------------------- one case
@@ -294,6 +296,13 @@ def column_unit(name: str, per_width: bool = False) -> str | None:
     return None
 
 
+@functools.lru_cache(maxsize=4096)
+def _kept_column(name: str) -> bool:
+    """Whether a study tabulates a flattened summary number (it has a unit): asked for the
+    same few dozen names of every case of a study."""
+    return column_unit(name) is not None
+
+
 def flatten_summary(summary: dict) -> dict:
     """Every design number of a run summary under one flat name, plus a laminar flag.
 
@@ -315,11 +324,17 @@ def flatten_summary(summary: dict) -> dict:
     flat: dict = {}
 
     def add(prefix: str, value) -> None:
-        if isinstance(value, dict):
+        kind = type(value)   # the plain types of a summary first (every case of a study)
+        if kind is float or kind is int:
+            if _kept_column(prefix):
+                flat[prefix] = value
+        elif kind is str or kind is list or kind is bool or value is None:
+            pass
+        elif isinstance(value, dict):
             for key, inner in value.items():
                 add(prefix if key == "per_wall" else f"{prefix}_{key}", inner)
         elif isinstance(value, (int, float)) and not isinstance(value, bool):
-            if column_unit(prefix) is not None:
+            if _kept_column(prefix):
                 flat[prefix] = float(value) if isinstance(value, float) else int(value)
 
     for key, value in summary.items():
@@ -372,7 +387,9 @@ def solve_chunk(raw: dict, keys: tuple, chunk: list, source, outputs: tuple) -> 
 
     Batching keeps the pickling of the case mapping and the task overhead per case small.
     """
-    return [(index, solve_point(raw, keys, values, source, outputs)) for index, values in chunk]
+    with remembering_texts():   # the texts of raw ("25 mm") are read once per chunk
+        return [(index, solve_point(raw, keys, values, source, outputs))
+                for index, values in chunk]
 
 
 # --------------------------------------------------------------------------- running
