@@ -31,6 +31,7 @@ its uncertainty.
 from __future__ import annotations
 
 import math
+import weakref
 
 import numpy as np
 import scipy.sparse as sp
@@ -126,12 +127,25 @@ def _load_of(v, w):
 def project(basis, values_at_points) -> np.ndarray:
     """L2 projection of a quadrature-point field onto the basis, by conjugate gradients
     on the mass matrix (well conditioned; no factorisation at any size)."""
-    mass = asm(_mass, basis).tocsr()
+    mass, preconditioner = _mass_system(basis)
     load = asm(_load_of, basis, value_at_points=values_at_points)
-    diagonal = mass.diagonal()
-    result, _ = spla.cg(mass, load, rtol=1e-12, maxiter=500,
-                        M=sp.diags(1.0 / diagonal))
+    result, _ = spla.cg(mass, load, rtol=1e-12, maxiter=500, M=preconditioner)
     return result
+
+
+#: basis -> its mass matrix and Jacobi preconditioner (an entry goes with its basis)
+_MASS_SYSTEMS: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
+
+
+def _mass_system(basis) -> tuple[sp.csr_matrix, sp.dia_matrix]:
+    """The mass matrix of ``basis`` and the inverse of its diagonal, assembled once per
+    basis: the cases of a study share their mesh and basis, and assembling them took a
+    third of a 1-D yield-stress case's post-processing (0.6 of 1.7 ms of its fields)."""
+    found = _MASS_SYSTEMS.get(basis)
+    if found is None:
+        mass = asm(_mass, basis).tocsr()
+        found = _MASS_SYSTEMS[basis] = (mass, sp.diags(1.0 / mass.diagonal()))
+    return found
 
 
 def fields(solution: Solution) -> dict[str, np.ndarray]:
@@ -578,14 +592,15 @@ def flow_start_pressure_gradient(solution: Solution) -> dict | None:
     if domain.dimension == 1 and domain.shape == "annulus":
         return {"value": 2 * tau_y / (g.outer_radius - g.inner_radius),
                 "source": "2 tau_y / (R_o - R_i) (exact, concentric annulus)"}
-    from .solver.scales import stopping_gradient
-    value = stopping_gradient(domain, tau_y)
+    from .solver.scales import stopping_limit
+    found = stopping_limit(domain, tau_y, solution.case)
+    value, how = found if found else (None, None)
     if value and slip:
         return {"value": value, "source": (
-            "limit load of the section without wall slip: an upper bound, a slipping "
-            "wall lets the plug move at a lower gradient")}
+            f"{how} without wall slip: an upper bound, a slipping wall lets the plug move "
+            "at a lower gradient")}
     if value:
-        return {"value": value, "source": "limit load of the section"}
+        return {"value": value, "source": how}
     perimeter = sum(w.perimeter for w in domain.walls.values())
     return {"value": tau_y * perimeter / domain.area,
             "source": "upper bound tau_y P / A (the true start gradient may be lower)"}
@@ -969,6 +984,31 @@ def _extrapolation_warnings(case, out: dict) -> list[str]:
     return warnings
 
 
+def _all_finite(value) -> bool:
+    """Whether every number in a summary is finite: the common case, walked without
+    building the dotted names :func:`_non_finite` gives (a third of a 1-D summary's time)."""
+    stack = [value]
+    while stack:
+        item = stack.pop()
+        kind = type(item)
+        if kind is float:
+            if not math.isfinite(item):
+                return False
+        elif kind is dict:
+            stack.extend(item.values())
+        elif kind is list or kind is tuple:
+            stack.extend(item)
+        elif kind in (str, int, bool, type(None)):
+            continue
+        elif isinstance(item, dict):
+            stack.extend(item.values())
+        elif isinstance(item, (list, tuple)):
+            stack.extend(item)
+        elif isinstance(item, (float, np.floating)) and not math.isfinite(item):
+            return False
+    return True
+
+
 def _non_finite(value, path: str = "") -> list[str]:
     """Dotted names of the non-finite numbers in a summary."""
     if isinstance(value, dict):
@@ -986,7 +1026,8 @@ def _check_converged(solution: Solution, out: dict) -> None:
     if not out["converged"]:
         return
     reasons = []
-    bad = _non_finite({k: v for k, v in out.items() if k != "regularisation"})
+    checked = {k: v for k, v in out.items() if k != "regularisation"}
+    bad = [] if _all_finite(checked) else _non_finite(checked)
     if bad:
         reasons.append("non-finite " + ", ".join(bad[:5]))
     tolerance = max(BALANCE_TOLERANCE, 100 * solution.case.solver.tolerance)

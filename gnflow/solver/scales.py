@@ -136,23 +136,72 @@ def rectangle_stopping_gradient(width: float, height: float, yield_stress: float
     return yield_stress / r
 
 
-def stopping_gradient(domain: Domain, yield_stress: float) -> float | None:
-    """The 2-D section's own stopping pressure gradient (Pa/m), or None if unknown.
+#: Cells of the finer of the two meshes on which an eccentric annulus's stopping
+#: gradient is computed when its own mesh is finer. The limit-load program's cost grows
+#: fast with the mesh (e = 0.5, 2026-12-03: 8k unknowns 0.9 s, 33k 12 s, 73k 29 s, 114k
+#: 51 s, ten times the regularised solve it checked), and its value converges from above
+#: at first order (8, 16, 32 cells: 65.70, 63.89, 63.01 tau_y-units), so the Richardson
+#: value 2 G(16) - G(8) = 62.08 is closer to the limit than the 114k mesh's own value;
+#: on the square duct 2 G(24) - G(12) is within 0.01 % of the closed form.
+STOP_MESH_CELLS = 16
+
+
+def stopping_gradient(domain: Domain, yield_stress: float, case: Case | None = None
+                      ) -> float | None:
+    """The 2-D section's own stopping pressure gradient (Pa/m), or None if unknown
+    (:func:`stopping_limit`)."""
+    found = stopping_limit(domain, yield_stress, case)
+    return found[0] if found else None
+
+
+def stopping_limit(domain: Domain, yield_stress: float, case: Case | None = None):
+    """``(value in Pa/m, how it was found)`` for a 2-D section, or None if unknown.
 
     The closed form for rectangles, else the exact method's limit-load computation
-    (:func:`gnflow.solver.exact.flow_stop_pressure_gradient`).
+    (:func:`gnflow.solver.exact.flow_stop_pressure_gradient`): on the domain's own mesh,
+    or, for an eccentric annulus finer than STOP_MESH_CELLS (given its ``case``), the
+    first-order Richardson value from meshes of STOP_MESH_CELLS and half as many cells.
+    The value per unit yield stress is kept on the domain: the solve's warning and the
+    summary both ask for it.
     """
     if domain.shape == "rectangle":
         x = domain.basis.mesh.p
-        return rectangle_stopping_gradient(float(np.ptp(x[0])), float(np.ptp(x[1])), yield_stress)
+        return (rectangle_stopping_gradient(float(np.ptp(x[0])), float(np.ptp(x[1])),
+                                            yield_stress),
+                "limit load of the section: tau_y times the rectangle's Cheeger constant "
+                "(closed form)")
+    kept = domain.__dict__.get("_gnflow_stopping")
+    if kept is None:
+        kept = domain.__dict__["_gnflow_stopping"] = _unit_stopping_limit(domain, case)
+    if kept is False:
+        return None
+    return abs(yield_stress) * kept[0], kept[1]
+
+
+def _unit_stopping_limit(domain: Domain, case: Case | None):
+    """(stopping gradient at yield stress 1, how), or False where it cannot be found."""
     try:
         from .exact import flow_stop_pressure_gradient
     except ImportError:
-        return None
+        return False
+    failures = (ArithmeticError, RuntimeError, ValueError, np.linalg.LinAlgError)
+    if (case is not None and domain.shape == "annulus" and domain.dimension == 2
+            and domain.cells > STOP_MESH_CELLS):
+        from ..errors import CaseError
+        from ..geometry import build_domain
+        try:
+            fine, coarse = (abs(float(flow_stop_pressure_gradient(
+                build_domain(case, cells), 1.0)))
+                for cells in (STOP_MESH_CELLS, STOP_MESH_CELLS // 2))
+            return (2.0 * fine - coarse, f"limit load of the section, extrapolated (first "
+                    f"order) from meshes of {STOP_MESH_CELLS} and {STOP_MESH_CELLS // 2} cells")
+        except (CaseError, *failures):
+            pass   # a coarse mesh that folds (high eccentricity): the domain's own mesh
     try:
-        return abs(float(flow_stop_pressure_gradient(domain, yield_stress)))
-    except (ArithmeticError, RuntimeError, ValueError, np.linalg.LinAlgError):
-        return None
+        return (abs(float(flow_stop_pressure_gradient(domain, 1.0))),
+                "limit load of the section")
+    except failures:
+        return False
 
 
 #: Within this factor above the stopping drive, a regularised solve is unreliable
@@ -171,7 +220,7 @@ def stopping_warnings(case: Case, domain: Domain, solution) -> list[str]:
     moving = any(v != 0 for v in case.drive.wall_speed.values())
     if domain.dimension != 2 or domain.kind != "axial" or moving:
         return []
-    critical = stopping_gradient(domain, model.yield_stress)
+    critical = stopping_gradient(domain, model.yield_stress, case)
     if not critical:
         return []
     share = abs(solution.pressure_gradient) / critical
