@@ -14,7 +14,7 @@ from gnflow.case import Case
 from gnflow.solver import solve
 from gnflow.solver.continuation import RegularisationSchedule
 from gnflow.solver.linear import LinearSolver
-from gnflow.solver.newton import FORCING_MAX, forcing_term
+from gnflow.solver.newton import FORCING_MARGIN, FORCING_MAX, forcing_term
 
 
 def _summary(solution) -> dict:
@@ -127,8 +127,11 @@ def test_forcing_term_follows_the_residual_within_its_bounds():
     # Eisenstat-Walker choice 2: 0.9 (r_k / r_k-1)^2
     assert forcing_term(1e-4, 1e-2, 1e-10, first=False) == pytest.approx(0.9e-4)
     assert forcing_term(1e-5, 1.1e-5, 1e-10, first=False) == FORCING_MAX   # slow progress
-    # near the tolerance: no tighter than taking the residual to 1e-3 tol
-    assert forcing_term(2e-10, 1e-5, 1e-10, first=False) == pytest.approx(5e-4)
+    # near the tolerance: no tighter than taking the residual to tol / FORCING_MARGIN
+    assert forcing_term(1e-7, 1e-5, 1e-10, first=False) == pytest.approx(
+        1e-3 / FORCING_MARGIN)
+    assert forcing_term(1e-8, 1e-5, 1e-10, first=False) == pytest.approx(
+        1e-2 / FORCING_MARGIN)
 
 
 def test_banded_factor_of_a_1d_system_matches_sparse_lu_and_declines_an_indefinite_one():

@@ -50,6 +50,19 @@ from .solution import Iteration, Solution, _History  # noqa: F401
 #: Unknowns above which a regularised section's regularisation error is estimated on the
 #: half-fine mesh of its mesh-error estimate (see _regularisation_report)
 HALF_MESH_ESTIMATE_LIMIT = SEQUENCING_LIMIT
+#: Loosest relative residual of the half-fine solve of a mesh-error estimate: the
+#: estimate is a relative change of the flow rate of 1e-5 or more (first order near the
+#: yield surfaces) given to two digits, which a residual of 1e-8 (a flow-rate error of
+#: that order) leaves exact; a case's own tolerance applies where it is looser
+MESH_ERROR_TOLERANCE = 1e-8
+#: Relative residual to which the levels of a grid sequence below the finest are solved:
+#: a start only, whose interpolation to the finer mesh leaves a residual of 1e-5 to 1e-4
+#: there in any case. Square ducts at 160k unknowns (2026-12-04), Newton steps on the
+#: coarser levels and CG iterations of all levels with 1e-6 / 1e-5 / 1e-4: power law
+#: n = 0.5 3+3+2, 79 / 2+3+2, 69 / 1+2+2, 67 (but 63 fine-level CG iterations instead of
+#: 53); Herschel-Bulkley 3+3+6, 162 / 3+3+5, 160 / 2+2+4, 166; Carreau 46 / 44 / 46 with
+#: a third fine-level step; power law n = 1.5 46 / 42 / 36
+SEQUENCE_TOLERANCE = 1e-5
 
 
 def solve(case: Case, cells: int | None = None, domain: Domain | None = None,
@@ -140,7 +153,8 @@ def _sequenced_coarse(case: Case, domain: Domain, progress, limit: int) -> Solut
             and case.fluid.model.name != "newtonian"):   # a linear problem: one solve
         return None
     # the coarse solution is only a start: a loose tolerance there suffices
-    rough = replace(case, solver=replace(case.solver, tolerance=max(case.solver.tolerance, 1e-6)))
+    rough = replace(case, solver=replace(case.solver, tolerance=max(case.solver.tolerance,
+                                                                    SEQUENCE_TOLERANCE)))
     coarse = solve(rough, cells=domain.cells // 2, estimate_regularisation=False,
                    progress=progress, sequence_level=True)
     return coarse if coarse.converged else None
@@ -211,14 +225,16 @@ def _finish(case: Case, domain: Domain, problem: Problem, outcome: Outcome, hist
     spec = case.solver
     u, gradient, used = outcome.u, outcome.gradient, outcome.iterations
     try:
-        residual = problem.relative_residual(u, gradient)
+        # the raw residual where it meets the tolerance (the round-off share, an extra
+        # pass over the elements, would only lower it), else the part beyond round-off
+        raw = problem.relative_residual(u, gradient, beyond_round_off=False)
+        residual = raw if raw <= spec.tolerance else problem.relative_residual(u, gradient)
     except (ArithmeticError, ValueError):
-        residual = math.inf
+        raw = residual = math.inf
     finite = bool(np.all(np.isfinite(u)) and math.isfinite(residual))
     converged = outcome.converged and finite and residual <= spec.tolerance
     shown = f"{residual:.2e}" if math.isfinite(residual) else "not finite"
     if converged:
-        raw = problem.relative_residual(u, gradient, beyond_round_off=False)
         if raw > residual:   # the rest is the round-off of the state itself
             shown = f"{raw:.2e}, at the round-off level"
         message = f"converged in {used} iterations (relative residual {shown})"
@@ -315,7 +331,8 @@ def _mesh_error(case: Case, solution: Solution):
             u[wall.dofs] = wall.value
         gradient = solution.pressure_gradient
     coarse = iterate_once(problem, u, gradient, case.drive.flow_rate, "newton",
-                          case.solver.tolerance, case.solver.max_iterations, [], 0)
+                          max(case.solver.tolerance, MESH_ERROR_TOLERANCE),
+                          case.solver.max_iterations, [], 0)
     if not coarse.converged:
         return {"mesh_error_estimate": None}, None
     fine_q = solution.problem().flow_rate(solution.u)

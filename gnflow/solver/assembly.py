@@ -350,6 +350,9 @@ class Problem:
             store[key] = parts
         self.area_weight, self.rate_factor, self.load, self.fixed, self.free = store[key]
         self.rate_floor = 0.0
+        #: the size of the round-off share of the residual (relative, as the residual)
+        #: at the last state where it was taken out; None before (see newton.merit)
+        self.round_off_level = None
         self.linear = LinearSolver("direct", self.free.size, dimension=domain.dimension)
         self._plan = None
         self._memo = self._residual_memo = None
@@ -397,6 +400,11 @@ class Problem:
             self._memo[5] = extra
         return gradient, coefficient, extra if tangent else None
 
+    def state_gradient(self, u) -> np.ndarray:
+        """grad u at the quadrature points, (dim, elements, points), shared with the last
+        state's viscosity evaluation (see _coefficients): do not change it in place."""
+        return self._coefficients(u, False)[0]
+
     def internal_force(self, u) -> np.ndarray:
         """``int a s^2 eta grad u . grad v``: the viscous force on each dof."""
         gradient, coefficient, _ = self._coefficients(u, False)
@@ -429,6 +437,7 @@ class Problem:
             if beyond is None:
                 residual = self._beyond_round_off(u, pressure_gradient, residual, weight)
                 beyond = memo[6] = float(_norm(residual) / scale)
+                self.round_off_level = self._bound_size / scale
             return beyond
         return relative
 
@@ -469,6 +478,7 @@ class Problem:
         bound = np.finfo(float).eps * ROUND_OFF_FACTOR * (
             self.plan.magnitude(stiffness, u) + np.abs(pressure_gradient * self.load))
         bound = bound[self.free] * weight[self.free]
+        self._bound_size = _norm(bound)
         return np.sign(residual) * np.maximum(np.abs(residual) - bound, 0.0)
 
     def tangent(self, u) -> sp.csr_matrix:
@@ -495,5 +505,5 @@ class Problem:
         _ = self.plan   # built here, so that neither copy builds its own
         other = copy.copy(self)
         other.model = model
-        other._memo = other._residual_memo = None
+        other._memo = other._residual_memo = other.round_off_level = None
         return other

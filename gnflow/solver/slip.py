@@ -301,6 +301,7 @@ class SlipProblem(Problem):
             # slip yield stress ran 100 iterations at 1.5e-9)
             residual = self._beyond_round_off(u, pressure_gradient, residual, weight)
             relative = float(_norm(residual) / scale)
+            self.round_off_level = self._bound_size / scale
         return relative
 
     def tangent(self, u) -> sp.csr_matrix:
