@@ -9,14 +9,49 @@ shared machine the wall time of several workers depends on what else runs; the C
 seconds per worker (``cpu s / workers``) are what the wall time would be on idle cores,
 less the pool's start-up.
 
-    python bench/sweep.py [--cases 1000] [--workers 1 2] [--cells 200]
+    python bench/sweep.py [--cases 1000] [--workers 1 2] [--cells 200] [--stages]
+
+``--stages`` first times the stages of each case in this process (building the case,
+the solve, the summary, its flattening) and counts the Newton iterations, then the sweep.
 """
 
 import argparse
 import os
+import statistics
+import time
 
-from gnflow import Case
-from gnflow.sweep import parse_vary, run_sweep
+from gnflow import Case, solve
+from gnflow.sweep import build_case, flatten_summary, grid, parse_vary, run_sweep
+from gnflow.units import remembering_texts
+
+
+def stages(case, vary, repeat=3):
+    """Median over ``repeat`` passes of the milliseconds per case of each stage, and the
+    Newton iterations of one pass."""
+    names = ("build", "solve", "summary", "flatten")
+    passes, iterations = [], 0
+    for _ in range(repeat):
+        spent = dict.fromkeys(names, 0.0)
+        iterations = 0
+        with remembering_texts():   # as solve_chunk reads them
+            for values in grid([vary]):
+                start = time.perf_counter()
+                built = build_case(case.raw, (vary.key,), values)
+                built_at = time.perf_counter()
+                solution = solve(built)
+                solved_at = time.perf_counter()
+                summary = solution._summary
+                summarised_at = time.perf_counter()
+                flatten_summary(summary)
+                spent["build"] += built_at - start
+                spent["solve"] += solved_at - built_at
+                spent["summary"] += summarised_at - solved_at
+                spent["flatten"] += time.perf_counter() - summarised_at
+                iterations += solution.iterations
+        passes.append(spent)
+    count = len(vary.values)
+    return {name: statistics.median(p[name] for p in passes) * 1e3 / count
+            for name in names}, iterations
 
 
 def main():
@@ -24,6 +59,8 @@ def main():
     parser.add_argument("--cases", type=int, default=1000)
     parser.add_argument("--workers", type=int, nargs="+", default=[1, 2])
     parser.add_argument("--cells", type=int, default=200)
+    parser.add_argument("--stages", action="store_true",
+                        help="time the stages of each case in this process first")
     args = parser.parse_args()
     case = Case.from_dict({
         "title": "bench: power-law pipe",
@@ -36,6 +73,12 @@ def main():
     print(f"{args.cases}-case sweep of drive.pressure_gradient, power-law pipe, "
           f"{args.cells} cells P2; {os.cpu_count()} cores, load average "
           f"{os.getloadavg()[0]:.1f} at start")
+    if args.stages:
+        spent, iterations = stages(case, vary)
+        print("ms per case, in this process: " + ", ".join(
+            f"{name} {value:.3f}" for name, value in spent.items())
+            + f"; total {sum(spent.values()):.3f}; Newton iterations {iterations} "
+            f"({iterations / len(vary.values):.2f} per case)")
     print(f"{'cases':>6s} {'workers':>8s} {'seconds':>8s} {'cases/s':>8s} {'speed-up':>9s} "
           f"{'failed':>7s} {'cpu s':>6s}")
     base = None

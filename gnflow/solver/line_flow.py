@@ -1,9 +1,11 @@
 """1-D flows from the closed form of their stress field: the flow curve inverted at the
-quadrature points, a Gauss rule graded toward the rate's cusp at a zero-stress point, and
-the exact solution at a given pressure gradient (the start of a 1-D Newton iteration).
+quadrature points, a Gauss rule graded toward the rate's cusp at a zero-stress point, the
+exact solution at a given pressure gradient (the start of a 1-D Newton iteration), and
+the discrete solution found from it cell by cell (the discrete balance of a 1-D P2 mesh
+decouples into 2 x 2 problems per cell and one flux constant).
 
 Used by :mod:`.newton` (its start and its primal-dual steps) and by :mod:`.adapt` (the
-error estimate of the default 1-D mesh); it imports neither.
+error estimate of the default 1-D mesh, the start of its re-solve); it imports neither.
 """
 
 from __future__ import annotations
@@ -238,7 +240,8 @@ class _Line:
         return steps, reach
 
 
-def line_start(problem: Problem, model: rheology.Model, gradient: float):
+def line_start(problem: Problem, model: rheology.Model, gradient: float,
+               refine_flux: bool = True):
     """The exact solution of a 1-D flow at a given pressure gradient, at the dofs (the
     start of its Newton iteration; None if it cannot be formed).
 
@@ -253,7 +256,11 @@ def line_start(problem: Problem, model: rheology.Model, gradient: float):
     by 4-point Gauss rules (graded toward the zero-stress point, where the rate has a
     cusp, in the interval holding it). The interpolant of the exact solution is within the
     discretisation error of the discrete one, so Newton converges from it in a step or
-    two (the Picard steps of the general start are not needed)."""
+    two (the Picard steps of the general start are not needed). Without ``refine_flux``
+    the first ``c`` is kept for models other than power laws (the Newtonian one, or for a
+    yield-stress model that of its unregularised flow curve; a power law's is always
+    found to round-off, as it places the zero-stress point, see adapt): the far wall's
+    speed is then met by the spread mismatch alone."""
     line = _Line(problem, model, gradient)
     walls = line.walls
     if len(walls) == 1:
@@ -266,7 +273,7 @@ def line_start(problem: Problem, model: rheology.Model, gradient: float):
         u_sorted = np.concatenate([[0.0], np.cumsum(found[0])])
         u_sorted += walls[0].value - u_sorted[-1]
     else:
-        found = _flux_constant(line)
+        found = _flux_constant(line, refine_flux)
         if found is None:
             return None
         c, (steps, reach) = found
@@ -287,7 +294,30 @@ def line_start(problem: Problem, model: rheology.Model, gradient: float):
     return u
 
 
-def _flux_constant(line: _Line):
+
+def line_solution(problem: Problem, model: rheology.Model, gradient: float):
+    """The discrete solution of a 1-D flow at a given pressure gradient, at the dofs, or
+    None where no start can be formed: :func:`discrete_line_solution` from the exact
+    state of :func:`line_start` with its first flux constant (that solve fixes the
+    constant to round-off in its own Newton steps, where each refinement here inverts
+    the flow curve at every point: bench/one_solve.py annulus and coaxial cases, Carreau
+    and Cross, 1.3 -> 0.8 ms for the start), else the exact start itself. The start stays
+    on the problem beside its flux, ``problem.line_start_flux = (returned, flux, start)``
+    (a power law's both exact), for the error estimate of the default mesh
+    (gnflow.solver.adapt.adapted_at_once)."""
+    if model is not problem.model:
+        return line_start(problem, model, gradient)
+    rough = line_start(problem, model, gradient, refine_flux=False)
+    if rough is None:
+        return line_start(problem, model, gradient)
+    discrete = discrete_line_solution(problem, rough, gradient)
+    if discrete is None:
+        return line_start(problem, model, gradient)   # Newton from the exact start
+    problem.line_start_flux = (discrete, problem.line_start_flux[1], rough)
+    return discrete
+
+
+def _flux_constant(line: _Line, refine: bool = True):
     """``(c, integrals(c))`` for the flux constant ``c`` that meets both walls' speeds, or
     None: from the Newtonian ``c`` (for a yield-stress model, from the root for its
     unregularised flow curve), Newton steps, bisecting once the root is bracketed and a
@@ -342,6 +372,8 @@ def _flux_constant(line: _Line):
     # as good as exact (Newton's steps are the same), and each evaluation inverts the
     # flow curve at every point; a power law's inversion is closed-form and its c
     # is found to round-off (it places the zero-stress point, see adapt)
+    if not (refine or line.power):
+        return c, f[1]
     return _root(mismatch, c, f, walls, 1e-13 if line.power else 1e-7)
 
 
@@ -373,3 +405,154 @@ def _root(mismatch, c, f, walls, relative):
         if math.isfinite(high - low) and high - low <= 1e-15 * max(abs(low), abs(high)):
             return c, f[1]
     return None
+
+
+
+class _Cells:
+    """What the cell-by-cell solve of a 1-D P2 problem needs of its mesh, in the order of
+    the cells from the first node to the last: the dofs, the products of the basis
+    gradients its residuals and tangents are sums of (with the quadrature weights), the
+    loads of a unit pressure gradient. Built once per basis and flow kind and kept on
+    the basis (a study solves the same mesh many times), read-only."""
+
+    def __init__(self, problem: Problem):
+        basis = problem.domain.basis
+        x = basis.doflocs[0]
+        left, right, middle = basis.element_dofs
+        order = np.argsort(x[left])
+        self.valid = bool(np.all(x[left] < x[right])
+                          and np.array_equal(left[order[1:]], right[order[:-1]]))
+        if not self.valid:
+            return
+        self.left, self.right, self.middle = left[order], right[order], middle[order]
+        self.first = float(x[self.left[0]])
+        dx = basis.dx[order]
+        a, s = problem.area_weight[order], problem.rate_factor[order]
+        d_left, self.d_right, self.d_middle = (basis.basis[j][0].grad[0][order]
+                                               for j in range(3))
+        self.s2 = s * s
+        self.weight, self.curvature = a * self.s2, a * self.s2 * self.s2
+        self.tests = np.stack([d_left, self.d_middle]) * dx
+        self.pairs = np.stack([d_left * self.d_right, d_left * self.d_middle,
+                               self.d_middle * self.d_right, self.d_middle * self.d_middle]) * dx
+        self.first_test = d_left[0] * dx[0]
+        # the loads of a unit G on the left and mid-point functions, with the in-flux
+        # of the cells before (the left equation's), and their sizes
+        cell_load = np.einsum("eq,eq->e", a, dx)
+        self.unit_loads = np.stack([
+            np.einsum("eq,eq->e", a * basis.basis[0][0].value[order], dx)
+            + np.concatenate([[0.0], np.cumsum(cell_load)[:-1]]),
+            np.einsum("eq,eq->e", a * basis.basis[2][0].value[order], dx)])
+        self.unit_noise = 1e-13 * np.abs(self.unit_loads).sum(axis=0)
+        self.abs_tests = np.abs(self.tests)
+        for value in vars(self).values():
+            if isinstance(value, np.ndarray):
+                value.setflags(write=False)
+
+    @classmethod
+    def of(cls, problem: Problem) -> "_Cells":
+        store = problem.domain.basis.__dict__.setdefault("_gnflow_line_cells", {})
+        key = (problem.domain.axisymmetric, problem.domain.kind)
+        if key not in store:
+            store[key] = cls(problem)
+        return store[key]
+
+
+def discrete_line_solution(problem: Problem, u, gradient: float, limit: int = 30):
+    """The discrete (P2) solution of a 1-D flow at a given pressure gradient, from a
+    start ``u`` near it (the exact solution of :func:`line_start`), found cell by cell;
+    None where it cannot be formed (then Newton on the whole mesh goes on from ``u``).
+
+    In 1-D the discrete balance decouples. The three local basis functions of a cell
+    sum to one, so the cell's residuals sum to its load, ``r_l + r_m + r_r = G A_e``
+    (``A_e = int_e a``), and the equation of the node between cells ``e`` and ``e + 1``
+    is ``r_r^e + r_l^(e+1) = 0``: the discrete flux into cell ``e``, ``P_e = -r_l^e``,
+    is ``P_e = c + G sum_(f<e) A_f`` with one constant ``c`` (0 on a pipe's axis, whose
+    dof is free). Given ``c`` each cell has two equations, ``r_l^e = -P_e`` and
+    ``r_m^e = 0``, in its two unknowns (the rise across it and its mid-point value),
+    solved by Newton with the consistent tangent, vectorised over the cells; between
+    two walls ``c`` is one more unknown, fixed by the sum of the rises, and enters the
+    same Newton step (a bordered system whose blocks are the cells' 2 x 2 tangents).
+    The quadrature, area weight, rate factor and rate floor are the problem's own, so
+    the result is the state Newton on the whole mesh converges to, within round-off:
+    from it the solve's convergence test passes without a step."""
+    domain, model = problem.domain, problem.model
+    if not (type(problem) is Problem and domain.dimension == 1 and domain.degree == 2
+            and domain.basis.Nbfun == 3 and len(domain.walls) in (1, 2)):
+        return None
+    cells = _Cells.of(problem)
+    walls = sorted(domain.walls.values(), key=lambda w: w.position)
+    if not cells.valid or (len(walls) == 1 and not (domain.axisymmetric
+                                                    and cells.first == 0.0)):
+        return None   # one wall: a pipe, its axis at the first node
+    gradient = gradient if domain.kind == "axial" else 0.0
+    d_right, d_middle, s2 = cells.d_right, cells.d_middle, cells.s2
+    weight, curvature, tests, pairs = cells.weight, cells.curvature, cells.tests, cells.pairs
+    loads, load_noise = gradient * cells.unit_loads, abs(gradient) * cells.unit_noise
+    floor2 = problem.rate_floor * problem.rate_floor
+    axial = domain.kind == "axial"   # s = 1
+    rise = u[cells.right] - u[cells.left]    # the unknowns: the rise across each cell
+    mid = u[cells.middle] - u[cells.left]    # and the mid-point value over its left node
+    two_walls = len(walls) == 2
+    wanted = walls[1].value - walls[0].value if two_walls else 0.0
+    c = 0.0
+    with np.errstate(all="ignore"):
+        if two_walls:   # the start's flux constant: its left residual, on the first cell
+            g = rise[0] * d_right[0] + mid[0] * d_middle[0]
+            rate = np.sqrt(s2[0] * g * g + floor2)
+            c = -(float(np.sum(weight[0] * model.viscosity(rate) * g * cells.first_test))
+                  + float(loads[0, 0]))
+        previous = None
+        for _ in range(limit):
+            g = rise[:, None] * d_right
+            g += mid[:, None] * d_middle
+            g2 = g * g
+            rate = np.sqrt((g2 if axial else s2 * g2) + floor2)
+            eta = model.viscosity(rate)
+            force = weight * eta * g
+            e1, e2 = np.einsum("keq,eq->ke", tests, force) + loads
+            e1 += c
+            size = np.abs(e1) + np.abs(e2)
+            if previous is not None:
+                # a cell whose residual grew against that of its last state under the
+                # new c (near a zero-stress point, where a power law with n < 1 is
+                # steepest, Newton overshoots and cycles) goes back half its step and
+                # is evaluated again: each cell's problem is convex, so its residual
+                # falls along a short enough step; what round-off leaves of a residual
+                # is no guide to the worth of a step
+                worse = size > previous[0]
+                if previous[3] < 20 and worse.any():
+                    worse &= size > load_noise + 1e-13 * np.einsum(
+                        "keq,eq->e", cells.abs_tests, np.abs(force))
+                    if worse.any():
+                        rise = np.where(worse, 0.5 * (previous[1] + rise), rise)
+                        mid = np.where(worse, 0.5 * (previous[2] + mid), mid)
+                        previous[3] += 1
+                        continue
+            tangent = weight * eta + curvature * (model.viscosity_derivative(rate) / rate) * g2
+            j11, j12, j21, j22 = np.einsum("keq,eq->ke", pairs, tangent)
+            det = j11 * j22 - j12 * j21
+            # J^-1 e and J^-1 (1, 0): the step is -(J^-1 e) - dc J^-1 (1, 0)
+            y1, y2 = (j22 * e1 - j12 * e2) / det, (j11 * e2 - j21 * e1) / det
+            z1, z2 = j22 / det, -j21 / det
+            dc = ((rise - y1).sum() - wanted) / z1.sum() if two_walls else 0.0
+            step_rise, step_mid = -y1 - dc * z1, -y2 - dc * z2
+            moved = max(abs(step_rise).max(), abs(step_mid).max())
+            if not (math.isfinite(moved) and math.isfinite(dc)):
+                return None
+            # the cell's residual had it stayed where it was, under the new c: what its
+            # step must not exceed
+            previous = [np.abs(e1 + dc) + np.abs(e2), rise, mid, 0]
+            rise, mid, c = rise + step_rise, mid + step_mid, c + dc
+            if moved <= 1e-11 * max(abs(rise).max(), abs(mid).max()):
+                break
+        else:
+            return None
+    nodes = np.concatenate([[0.0], np.cumsum(rise)])
+    nodes += walls[0].value if two_walls else walls[0].value - nodes[-1]
+    solution = np.empty_like(u)
+    solution[cells.left], solution[cells.right[-1]] = nodes[:-1], nodes[-1]
+    solution[cells.middle] = nodes[:-1] + mid
+    for wall in walls:
+        solution[wall.dofs] = wall.value
+    return solution if np.all(np.isfinite(solution)) else None
