@@ -27,6 +27,14 @@ same solve without the profiler is printed first.
 ``--calls`` prints, per model, the number of calls and the cumulative profiled seconds of
 each routine in ``CALLS`` (all mesh levels of the grid sequencing together), and the
 seconds per fine-level Newton step of the whole solve.
+
+    python bench/profile_solve.py --stages [--cells 500]
+
+``--stages`` times (wall clock, no profiler) the stages of one solve instead, per model:
+the fine mesh and basis, the coarser levels of the grid sequencing (each a whole solve),
+the fine level (start state, assembly plan, Newton, with its own linear solves), the
+mesh-error and regularisation-error estimates of a yield-stress fluid, and the fine-level
+CG iterations; the Newtonian row is the reference every other model is compared with.
 """
 
 from __future__ import annotations
@@ -123,6 +131,78 @@ def one_d_case(model: str):
                            "drive": {"pressure_gradient": -6000.0}})
 
 
+def stage_times(case) -> tuple[dict[str, float], object, int]:
+    """Wall seconds of the stages of one solve of ``case`` (see ``--stages``), the
+    solution, and the fine level's CG iterations."""
+    import gnflow.solver as flow
+    from gnflow import solve
+    from gnflow.solver.linear import LinearSolver
+    seconds = dict.fromkeys(("mesh", "coarse levels", "fine level", "estimates"), 0.0)
+    depth = [0]
+    fine_cg = []
+    originals = {name: getattr(flow, name) for name in
+                 ("build_domain", "_sequenced_coarse", "_mesh_error", "_estimate_level",
+                  "_regularisation_report")}
+    stage_of = {"build_domain": "mesh", "_sequenced_coarse": "coarse levels",
+                "_mesh_error": "estimates", "_estimate_level": "estimates",
+                "_regularisation_report": "estimates"}
+
+    def timed(name):
+        def call(*args, **kwargs):
+            depth[0] += 1
+            started = time.perf_counter()
+            try:
+                return originals[name](*args, **kwargs)
+            finally:
+                depth[0] -= 1
+                if depth[0] == 0:   # the outermost call only (levels solve recursively)
+                    seconds[stage_of[name]] += time.perf_counter() - started
+        return call
+    original_cg = LinearSolver._cg
+
+    def counted_cg(self, *args, **kwargs):
+        out = original_cg(self, *args, **kwargs)
+        if depth[0] == 0:
+            fine_cg.append(self.cg_iterations[-1])
+        return out
+    try:
+        for name in originals:
+            setattr(flow, name, timed(name))
+        LinearSolver._cg = counted_cg
+        started = time.perf_counter()
+        results = solve(case)
+        total = time.perf_counter() - started
+    finally:
+        for name, function in originals.items():
+            setattr(flow, name, function)
+        LinearSolver._cg = original_cg
+    seconds["fine level"] = total - sum(seconds.values())
+    seconds["total"] = total
+    return seconds, results.solution, sum(fine_cg)
+
+
+def print_stages(args) -> None:
+    from gnflow import solve
+    names = ("mesh", "coarse levels", "fine level", "estimates", "total")
+    print(f"square duct, P2, {(2 * args.cells + 1) ** 2:,d} unknowns; wall seconds per stage "
+          "(one solve each, after a warm-up solve of the same case on 8 x 8 cells)")
+    print(f"{'model':18s} {'fine it':>7s} {'fine CG':>7s} {'coarse it':>10s} "
+          + " ".join(f"{n:>13s}" for n in names) + f" {'/ Newtonian':>11s}")
+    reference = None
+    for model in args.models.split(","):
+        solve(make_case(8, model, "amg"))
+        seconds, solution, fine_cg = stage_times(make_case(args.cells, model))
+        levels, coarse = [], solution.coarse
+        while coarse is not None:
+            levels.append(str(coarse.iterations))
+            coarse = coarse.coarse
+        if model == "newtonian":
+            reference = seconds
+        ratio = f"{seconds['total'] / reference['total']:.2f}" if reference else "-"
+        print(f"{model:18s} {solution.iterations:7d} {fine_cg:7d} {'+'.join(levels) or '-':>10s} "
+              + " ".join(f"{seconds[n]:13.2f}" for n in names) + f" {ratio:>11s}", flush=True)
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--cells", type=int, default=200, help="cells per side (200: 160k)")
@@ -130,7 +210,12 @@ def main() -> None:
     parser.add_argument("--one-d", action="store_true", help="profile 1-D pipe solves")
     parser.add_argument("--calls", action="store_true",
                         help="also print calls and seconds of the hot routines")
+    parser.add_argument("--stages", action="store_true",
+                        help="wall seconds per stage of one solve instead of a profile")
     args = parser.parse_args()
+    if args.stages:
+        print_stages(args)
+        return
     from gnflow import solve
 
     names = [p for p, _ in PHASES] + ["other"]

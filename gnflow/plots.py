@@ -18,6 +18,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import TYPE_CHECKING
 
+import math
 import matplotlib
 
 matplotlib.use("Agg")
@@ -248,9 +249,19 @@ def convergence_plot(results: "Results | Solution", path: Path) -> None:
             pts = [(h.iteration, max(h.residual, 1e-18)) for h in history if h.method == method]
             if pts:
                 ax.semilogy(*zip(*pts), marker, ms=4, label=f"{method} step")
+    elif math.isfinite(results.solution.residual):
+        # no iteration: the start state met the tolerance (a Newtonian flow, or a 1-D
+        # flow whose start is its discrete solution); its residual is the one point
+        start = max(results.solution.residual, 1e-18)
+        ax.semilogy([0], [start], "D", ms=5, color="tab:green",
+                    label="start state (no iteration needed)")
+        ax.set_xlim(-1.0, 1.0)
+        ax.set_ylim(start / 10.0, max(start, results.case.solver.tolerance) * 10.0)
+        ax.set_xticks([0])
     ax.axhline(results.case.solver.tolerance, color="tab:red", ls="--", lw=0.8,
                label=f"tolerance {results.case.solver.tolerance:.0e}")
-    ax.xaxis.set_major_locator(ticker.MaxNLocator(integer=True))
+    if history:
+        ax.xaxis.set_major_locator(ticker.MaxNLocator(integer=True))
     ax.set_xlabel("iteration")
     ax.set_ylabel("relative residual")
     ax.set_title("convergence history", fontsize=10)

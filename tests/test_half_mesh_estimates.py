@@ -58,3 +58,36 @@ def test_mesh_error_from_the_sequenced_solution_matches_a_fresh_half_mesh_solve(
     assert reused["mesh_error_estimate"] > 0
     assert reused["mesh_error_estimate"] == pytest.approx(fresh["mesh_error_estimate"],
                                                           rel=1e-4)
+
+
+def test_regularisation_error_on_a_coarser_sequence_level_matches_the_fine_estimate(
+        monkeypatch):
+    # 144 cells: levels of 72, 36 and 18 cells; with ESTIMATE_UNKNOWNS = 5000 the
+    # estimate moves from the half mesh (72 cells) to the 36-cell level (5329 unknowns)
+    case = Case.from_dict({
+        "fluid": {"model": "herschel-bulkley", "yield_stress": 2.0, "consistency": 1.0,
+                  "flow_index": 0.5},
+        "geometry": {"shape": "rectangle", "width": 0.1, "height": 0.1},
+        "drive": {"pressure_gradient": -1000.0},
+        "mesh": {"cells": 2 * CELLS, "degree": 2},
+        "solver": {"method": "newton", "tolerance": 1e-10}})
+    monkeypatch.setattr(solver, "ESTIMATE_UNKNOWNS", 5000)
+    seen = []
+    estimate = solver.regularisation_error
+
+    def recorded(problem, *args):
+        seen.append((problem.domain.cells, problem.model.regularisation_parameter))
+        return estimate(problem, *args)
+    monkeypatch.setattr(solver, "regularisation_error", recorded)
+    coarser = solver.solve(case)
+    assert coarser.converged, coarser.message
+    report = coarser.regularisation
+    assert "coarser mesh of the grid sequence (36 cells)" in report["error_estimate_definition"]
+    monkeypatch.setattr(solver, "HALF_MESH_ESTIMATE_LIMIT", 10 ** 12)
+    fine = solver.solve(case).regularisation
+    assert "grid sequence" not in fine["error_estimate_definition"]
+    assert fine["error_estimate"] > 0
+    assert report["error_estimate"] == pytest.approx(fine["error_estimate"], rel=0.05)
+    assert report["error_estimate_reliable"] == fine["error_estimate_reliable"]
+    # estimated on the 36-cell level at the fine solve's regularisation, not the level's
+    assert seen[0] == (36, coarser.model.regularisation_parameter)

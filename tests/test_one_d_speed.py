@@ -44,7 +44,7 @@ def test_annulus_exact_start_meets_general_start(fluid, monkeypatch):
     exact = solve(case)
     import sys
     newton = sys.modules["gnflow.solver.newton"]
-    monkeypatch.setattr(newton, "line_start", lambda *args: None)   # the general start
+    monkeypatch.setattr(newton, "line_solution", lambda *args: None)   # the general start
     general = solve(case)
     assert exact.converged and general.converged
     assert exact.solution.model == general.solution.model

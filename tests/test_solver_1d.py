@@ -7,6 +7,7 @@ Carreau, Carreau-Yasuda and Cross; velocity profile within 1e-6 of the peak spee
 within 0.1 % of the exact (unregularised) solution for Bingham and Herschel-Bulkley.
 """
 
+import importlib
 import math
 
 import numpy as np
@@ -15,6 +16,7 @@ import pytest
 from gnflow import analytic
 from gnflow.case import Case
 from gnflow import solve
+from gnflow.solver import line_flow
 
 SMOOTH_FLUIDS = {
     "newtonian": {"model": "newtonian", "viscosity": 0.8},
@@ -200,10 +202,17 @@ def test_power_law_pipe_metzner_reed_friction_factor(n):
     assert s["fanning_friction_factor"] * s["reynolds_number"] == pytest.approx(16.0, rel=1e-6)
 
 
+#: A drive the start does not already solve: at a pressure gradient the start of a 1-D
+#: flow is its discrete solution (gnflow.solver.line_flow.line_solution) and Newton only
+#: confirms it; at a given flow rate the gradient is an unknown and the iteration runs
+FLOW_RATE_ANNULUS = ({"shape": "annulus", "inner_radius": 0.01, "outer_radius": 0.03},
+                     {"flow_rate": "1.5 L/s", "wall_speed": {"inner": 0.2}})
+
+
 def test_newton_and_picard_agree():
     fluid = {"model": "carreau", "zero_shear_viscosity": 5.0, "time_constant": 0.2,
              "flow_index": 0.6}
-    geometry, drive = AXIAL_SHAPES["annulus+inner"]
+    geometry, drive = FLOW_RATE_ANNULUS
     newton = solve(_case(fluid, geometry, drive))
     picard = solve(_case(fluid, geometry, drive, solver={"method": "picard",
                                                          "max_iterations": 500}))
@@ -233,7 +242,7 @@ def test_flow_rate_targeting_round_trip(fluid, shape):
 
 
 def test_not_converged_is_reported_not_hidden():
-    case = _case(SMOOTH_FLUIDS["power-law 0.3"], *AXIAL_SHAPES["pipe"],
+    case = _case(SMOOTH_FLUIDS["power-law 0.3"], *FLOW_RATE_ANNULUS,
                  solver={"max_iterations": 1})
     solution = solve(case)
     assert not solution.converged
@@ -268,9 +277,24 @@ def test_force_balance_and_summary_contract():
 
 def test_progress_callback_sees_every_iteration():
     seen = []
-    solution = solve(_case(SMOOTH_FLUIDS["carreau"], *AXIAL_SHAPES["annulus+inner"]),
+    solution = solve(_case(SMOOTH_FLUIDS["carreau"], *FLOW_RATE_ANNULUS),
                      progress=seen.append)
     assert seen == list(solution.history) and len(seen) >= 1
+
+
+def test_start_at_a_pressure_gradient_is_the_converged_discrete_solution(monkeypatch):
+    # the start is accepted only by the same residual test as any iterate: it meets the
+    # tolerance with no Newton step, and Newton from the exact start agrees with it
+    newton_module = importlib.import_module("gnflow.solver.newton")
+    case = _case(SMOOTH_FLUIDS["carreau"], *AXIAL_SHAPES["annulus+inner"])
+    solution = solve(case)
+    assert solution.converged and solution.iterations == 0
+    assert solution.residual <= case.solver.tolerance
+    monkeypatch.setattr(newton_module, "line_solution", line_flow.line_start)
+    iterated = solve(case)
+    assert iterated.converged and iterated.iterations >= 1
+    assert solution.summary()["flow_rate"] == pytest.approx(iterated.summary()["flow_rate"],
+                                                            rel=1e-9)
 
 
 @pytest.mark.parametrize("shape", ["slit", "annulus"])
