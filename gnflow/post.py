@@ -37,6 +37,7 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 from skfem import BilinearForm, FacetBasis, LinearForm, asm
+from skfem.element import ElementComposite, ElementVector
 
 from .geometry import wall_force_shares
 from .laminar import (
@@ -125,12 +126,69 @@ def _load_of(v, w):
 
 
 def project(basis, values_at_points) -> np.ndarray:
-    """L2 projection of a quadrature-point field onto the basis, by conjugate gradients
-    on the mass matrix (well conditioned; no factorisation at any size)."""
+    """L2 projection of a quadrature-point field onto the basis, by scipy's conjugate
+    gradients on the mass matrix (well conditioned; no factorisation at any size). The
+    reference of :func:`project_all`, which the point fields use."""
     mass, preconditioner = _mass_system(basis)
-    load = asm(_load_of, basis, value_at_points=values_at_points)
+    load = _load(basis, values_at_points)
     result, _ = spla.cg(mass, load, rtol=1e-12, maxiter=500, M=preconditioner)
     return result
+
+
+#: relative residual and iteration limit of the projections' conjugate gradients
+PROJECTION_TOLERANCE = 1e-12
+PROJECTION_ITERATIONS = 500
+
+
+def project_all(basis, values_at_points) -> np.ndarray:
+    """L2 projections of several quadrature-point fields onto the basis at once
+    (``values_at_points`` shape (fields, elements, points); returns (fields, dofs)): what
+    :func:`project` gives each field, to the rounding of the iteration (the same
+    Jacobi-preconditioned conjugate gradients and stopping rule, ``|r| < 1e-12 |b|``).
+
+    The inner products are numpy's own loops over contiguous rows (:func:`_row_inner`):
+    scipy's ``cg`` takes them from BLAS, whose threads wait for each other on a loaded
+    machine (the two gradient components of a 29k-unknown section: 1.3 s with ``cg``,
+    0.04 s so; 250k: 1.7 s and 0.6-0.9 s)."""
+    mass, preconditioner = _mass_system(basis)
+    loads = np.array([_load(basis, values) for values in values_at_points])
+    return _conjugate_gradients(mass, loads, preconditioner.diagonal())
+
+
+def _row_inner(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """The inner products of the rows of ``a`` and ``b``, without BLAS."""
+    return np.einsum("ij,ij->i", a, b)
+
+
+def _conjugate_gradients(matrix, loads: np.ndarray, inverse_diagonal: np.ndarray) -> np.ndarray:
+    """``matrix^-1 b`` for each row ``b`` of ``loads``, each with its own step lengths and
+    its own stop (``|r| < PROJECTION_TOLERANCE |b|``, checked before each step as scipy's
+    ``cg`` does), by conjugate gradients preconditioned by ``inverse_diagonal``; a row
+    that has stopped keeps its value, and a zero row gives zero."""
+    solution = np.zeros_like(loads)
+    residual = loads.copy()
+    tolerance = PROJECTION_TOLERANCE * np.sqrt(_row_inner(loads, loads))
+    direction = previous = None
+    for _ in range(PROJECTION_ITERATIONS):
+        active = (np.sqrt(_row_inner(residual, residual)) >= tolerance) & (tolerance > 0)
+        if not active.any():
+            break
+        preconditioned = residual * inverse_diagonal
+        current = _row_inner(residual, preconditioned)
+        if direction is None:
+            direction = preconditioned
+        else:
+            direction *= np.divide(current, previous, out=np.zeros_like(current),
+                                   where=active & (previous != 0))[:, None]
+            direction += preconditioned
+        product = np.array([matrix @ row for row in direction])
+        curvature = _row_inner(direction, product)
+        step = np.divide(current, curvature, out=np.zeros_like(current),
+                         where=active & (curvature != 0))[:, None]
+        solution += direction * step
+        residual -= product * step
+        previous = current
+    return solution
 
 
 #: basis -> its mass matrix and Jacobi preconditioner (an entry goes with its basis)
@@ -138,14 +196,137 @@ _MASS_SYSTEMS: weakref.WeakKeyDictionary = weakref.WeakKeyDictionary()
 
 
 def _mass_system(basis) -> tuple[sp.csr_matrix, sp.dia_matrix]:
-    """The mass matrix of ``basis`` and the inverse of its diagonal, assembled once per
-    basis: the cases of a study share their mesh and basis, and assembling them took a
-    third of a 1-D yield-stress case's post-processing (0.6 of 1.7 ms of its fields)."""
+    """The mass matrix of ``basis`` (:func:`_mass_matrix`) and the inverse of its
+    diagonal, assembled once per basis: the cases of a study share their mesh and basis,
+    and assembling them took a third of a 1-D yield-stress case's post-processing (0.6 of
+    1.7 ms of its fields)."""
     found = _MASS_SYSTEMS.get(basis)
     if found is None:
-        mass = asm(_mass, basis).tocsr()
+        mass = _mass_matrix(basis)
         found = _MASS_SYSTEMS[basis] = (mass, sp.diags(1.0 / mass.diagonal()))
     return found
+
+
+def _basis_values(basis, derivative: int = 0) -> list[np.ndarray]:
+    """The values (``derivative`` 0) or gradients (1) of each basis function at the
+    quadrature points of ``basis``, as the arrays ``basis`` keeps."""
+    return [np.asarray(basis.basis[i][0].get(derivative)) for i in range(basis.Nbfun)]
+
+
+def _mass_matrix(basis) -> sp.csr_matrix:
+    """The mass matrix ``asm(_mass, basis)`` of a scalar element, as the product
+    ``A^T (B A)`` of sparse matrices: ``A`` picks each element's dofs (one entry a row)
+    and ``B A`` has the element mass matrices (:func:`_element_masses`) as its rows.
+    scipy's compiled sparse product sums them into the global entries without sorting;
+    ``asm``'s COO to CSR conversion sorts 36 entries an element (a 1M-unknown P2 section:
+    3-4 s with ``asm``, 0.4-1 s so; bench/summary.py).
+
+    The element entries are ``asm``'s bit for bit; only the order in which the entries of
+    neighbouring elements are added differs, by a rounding of the sum (a relative 1e-16;
+    none in 1-D, where at most two elements share an entry). ``tests/test_summary_speed.py``
+    compares both with ``asm``.
+    """
+    element = _element_masses(basis)
+    if element is None:
+        return asm(_mass, basis).tocsr()
+    nt, nb, _ = element.shape
+    slots = nt * nb                               # one per element and local dof
+    index = np.int32 if slots * nb < 2 ** 31 else np.int64
+    local_dofs = np.ascontiguousarray(basis.element_dofs.T, dtype=index)   # (elements, nb)
+    pick = sp.csr_matrix((np.ones(slots), local_dofs.ravel(), np.arange(slots + 1, dtype=index)),
+                         shape=(slots, basis.N))
+    rows = sp.csr_matrix((element.ravel(), np.repeat(local_dofs, nb, axis=0).ravel(),
+                          np.arange(0, slots * nb + 1, nb, dtype=index)), shape=(slots, basis.N))
+    mass = (pick.T.tocsr() @ rows).tocsr()
+    mass.sort_indices()
+    return mass
+
+
+def _element_masses(basis) -> np.ndarray | None:
+    """The element mass matrices ``(elements, i, j)`` as scikit-fem's bilinear assembly of
+    ``_mass`` computes them, bit for bit (its entry ``(j, i)`` of element ``e`` is
+    ``np.sum(phi_j * phi_i * dx, axis=1)``: the products at the points, added in order),
+    faster (1M unknowns: 1.3 s in ``asm``, 0.2-0.4 s here): the basis values of a Lagrange
+    element are the same on every element, so ``phi_j phi_i`` is a number per point, and
+    an entry below the diagonal is the one above (``phi_i phi_j = phi_j phi_i`` exactly).
+    None for a basis without that structure (a vector or composite element)."""
+    phi = _reference_values(basis)
+    if phi is None:
+        return None
+    weights = np.ascontiguousarray(basis.dx.T)    # (points, elements)
+    nb = len(phi)
+    element = np.empty((nb, nb, weights.shape[1]))   # contiguous rows while filled
+    scratch = np.empty(weights.shape[1])
+    for i in range(nb):
+        for j in range(i, nb):
+            products = phi[j] * phi[i]
+            entry = element[i, j]
+            np.multiply(products[0], weights[0], out=entry)
+            for q in range(1, weights.shape[0]):
+                entry += np.multiply(products[q], weights[q], out=scratch)
+            element[j, i] = entry
+    return np.ascontiguousarray(element.transpose(2, 0, 1))
+
+
+def _reference_values(basis) -> list[np.ndarray] | None:
+    """The value of each basis function at each quadrature point, (points,) a function,
+    when they are the same on every element (the functions of a scalar Lagrange element
+    are its reference ones); else None."""
+    if isinstance(basis.elem, (ElementVector, ElementComposite)):
+        return None
+    values = [np.asarray(basis.basis[i][0]) for i in range(basis.Nbfun)]
+    first = [v[0] for v in values]
+    # scikit-fem broadcasts the reference values over the elements (a zero stride)
+    if all(v.strides[0] == 0 or np.array_equal(v, np.broadcast_to(f, v.shape))
+           for f, v in zip(first, values)):
+        return first
+    return None
+
+
+def _load(basis, values_at_points) -> np.ndarray:
+    """``asm(_load_of, basis, value_at_points=values_at_points)``, bit for bit: the same
+    element sums (``np.sum(values * phi_i * dx, axis=1)``: the products at the points,
+    added in order), added into the vector in the same order (entry by entry, as scipy's
+    COO conversion to a dense array does) by one ``bincount``. The products and sums
+    run over the points of all elements at once (1M unknowns: about 0.2 s a field, 0.6 s
+    with ``asm``)."""
+    phi = _reference_values(basis)
+    if phi is None:
+        return asm(_load_of, basis, value_at_points=values_at_points)
+    values = np.ascontiguousarray(np.asarray(values_at_points).T)   # (points, elements)
+    weights = np.ascontiguousarray(basis.dx.T)
+    data = np.empty((len(phi), values.shape[1]))
+    scratch = np.empty(values.shape[1])
+    for i, phi_i in enumerate(phi):
+        entry = data[i]
+        for q in range(values.shape[0]):
+            term = entry if q == 0 else scratch
+            np.multiply(values[q], phi_i[q], out=term)
+            term *= weights[q]
+            if q:
+                entry += term
+    return np.bincount(basis.element_dofs.ravel(), weights=data.ravel(), minlength=basis.N)
+
+
+def _at_points(basis, u: np.ndarray, derivative: int = 0) -> np.ndarray:
+    """``u`` (dofs of a scalar element) at the quadrature points of ``basis``: the
+    values (``derivative`` 0, shape (elements, points)) or the gradient (1, shape (dim,
+    elements, points)) of ``basis.interpolate(u)``, bit for bit (the same products
+    summed in the same order), without its ``np.unique`` of the dofs of every element of
+    the mesh, which only elements of several components need (0.6 s a call on a
+    1M-unknown section, also for a facet basis of one wall)."""
+    if isinstance(basis.elem, (ElementVector, ElementComposite)):
+        found = basis.interpolate(u)
+        return np.asarray(found.grad if derivative else found)
+    u = np.asarray(u)
+    dofs = basis.element_dofs
+    terms = _basis_values(basis, derivative)
+    shape = (..., None)   # the dof values of an element times its functions at the points
+    out = 0.0 * (u[dofs[0]][shape] * terms[0])
+    scratch = np.empty_like(out)
+    for i, term in enumerate(terms):
+        out += np.multiply(u[dofs[i]][shape], term, out=scratch)
+    return out
 
 
 def fields(solution: Solution) -> dict[str, np.ndarray]:
@@ -168,7 +349,7 @@ def fields(solution: Solution) -> dict[str, np.ndarray]:
         rate = np.maximum(solution.shear_rate, solution.rate_floor)
         viscosity = solution.viscosity
     else:
-        gradient = np.array([project(basis, g) for g in basis.interpolate(solution.u).grad])
+        gradient = project_all(basis, _at_points(basis, solution.u, 1))
         rate = np.sqrt(np.sum(gradient ** 2, axis=0)) * domain.rate_factor(x)
         rate = np.maximum(rate, solution.rate_floor)
         viscosity = _viscosity(solution, np.maximum(rate, 1e-300))
@@ -314,24 +495,24 @@ def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
     out = {}
     for name in domain.walls:
         facets = _chained(mesh, domain.extra["wall_facets"][name])
-        facet_basis = FacetBasis(mesh, domain.basis.elem, facets=facets)
-        gradient = facet_basis.interpolate(solution.u).grad
+        facet_basis = _wall_basis(domain.basis, facets)
+        gradient = _at_points(facet_basis, solution.u, 1)
         normal_derivative = np.sum(gradient * facet_basis.normals, axis=0)
         rate = np.abs(normal_derivative)
         rate_squared = np.sum(gradient ** 2, axis=0)
         if isinstance(solution, HelicalSolution) and solution.in_plane_velocity is not None:
             rate_squared = rate_squared + _in_plane_strain_squared(solution, facet_basis, facets)
             rate = np.sqrt(rate_squared)
-        temperature = (np.asarray(facet_basis.interpolate(solution.temperature))
+        temperature = (_at_points(facet_basis, solution.temperature)
                        if isinstance(solution, HeatedSolution) else None)
         viscosity = _viscosity(solution, np.sqrt(rate_squared + solution.rate_floor ** 2),
                                temperature)
         stress = -viscosity * normal_derivative
         if flux is not None:
-            stress = -np.asarray(facet_basis.interpolate(flux))
+            stress = -_at_points(facet_basis, flux)
         slip = np.zeros_like(stress)
         if name in laws:
-            slip = np.asarray(facet_basis.interpolate(solution.u)) - domain.walls[name].value
+            slip = _at_points(facet_basis, solution.u) - domain.walls[name].value
         points = np.asarray(facet_basis.global_coordinates())
         lengths = facet_basis.dx.sum(axis=1)
         start = np.concatenate([[0.0], np.cumsum(lengths)[:-1]])
@@ -350,6 +531,15 @@ def wall_distributions(solution: Solution) -> dict[str, dict[str, np.ndarray]]:
     return out
 
 
+def _wall_basis(basis, facets) -> FacetBasis:
+    """A facet basis of ``basis``'s element on ``facets``, sharing ``basis``'s dofs: the
+    same basis as ``FacetBasis(basis.mesh, basis.elem, facets=facets)`` without a second
+    numbering of the dofs of the whole mesh and their locations (0.17 s a wall on a
+    1M-unknown section; the locations of a facet basis are not used here)."""
+    return FacetBasis(basis.mesh, basis.elem, facets=facets, dofs=basis.dofs,
+                      disable_doflocs=True)
+
+
 def consistent_wall_flux(solution: Solution, reaction: np.ndarray) -> np.ndarray:
     """The flux ``eta du/dn`` along the walls (Pa, outward normal) as a field on the
     walls' dofs whose moments are the reaction: ``int_walls sigma phi_i ds = R_i`` for
@@ -360,7 +550,7 @@ def consistent_wall_flux(solution: Solution, reaction: np.ndarray) -> np.ndarray
     domain = solution.domain
     basis = domain.basis
     facets = np.concatenate([np.asarray(f) for f in domain.extra["wall_facets"].values()])
-    mass = asm(_mass, FacetBasis(basis.mesh, basis.elem, facets=facets)).tocsr()
+    mass = asm(_mass, _wall_basis(basis, facets)).tocsr()
     dofs = domain.wall_dofs
     sigma = np.zeros(basis.N)
     sigma[dofs] = spla.spsolve(mass[dofs][:, dofs].tocsc(), np.asarray(reaction)[dofs])
@@ -488,9 +678,10 @@ def unyielded_zones(solution: Solution, point_fields: dict) -> dict:
         points, triangles = p2_sub_triangles(basis)
     else:
         points, triangles = np.asarray(basis.doflocs), basis.element_dofs[:3]
-    centroids = points[:, triangles].mean(axis=1)
-    result = unyielded_fraction_2d(points, triangles, stress - tau_y,
-                                   weight=domain.area_weight(centroids))
+    weight = None   # a planar section's area weight is 1 (a product with 1 is exact)
+    if domain.axisymmetric:
+        weight = domain.area_weight(points[:, triangles].mean(axis=1))
+    result = unyielded_fraction_2d(points, triangles, stress - tau_y, weight=weight)
     return {"unyielded_fraction": result.fraction,
             "unyielded_fraction_uncertainty": result.uncertainty}
 
