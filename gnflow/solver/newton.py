@@ -366,16 +366,15 @@ def initial_state(problem: Problem, case: Case, model: rheology.Model, rate: flo
     domain = problem.domain
     if (domain.dimension == 1 and type(problem) is Problem
             and case.drive.flow_rate is None and model.name != "newtonian"
-            and domain.shape != "slit"
-            and not (model.is_yield_stress and domain.shape == "pipe")):
-        # A slit, and a regularised yield-stress fluid in a pipe, keep the start below:
+            and not (model.is_yield_stress and domain.shape in ("slit", "pipe"))):
+        # A regularised yield-stress fluid in a slit or a pipe keeps the start below:
         # there the Newtonian stress is the exact one (or, with a moving wall, close), and
-        # Newton from it took fewer steps than from the exact solution (Newton steps,
-        # below / exact: slit power law n = 0.5 3/4, n = 0.3 2/4, Bingham 5/6,
-        # Herschel-Bulkley 3/5, with a moving wall 4/5, 2/3; pipe 3/3, 2/3: at the
-        # zero-stress plane the rate has a cusp, at the plug's edge the knee of the flow
-        # curve is a twentieth of a cell wide, and the discrete solution is not close to
-        # the exact one there). In an annulus the Newtonian zero-stress radius is not the
+        # Newton from it took about as many steps as from the discrete start (2026-12-04,
+        # bench/one_solve.py: slit Bingham 5 / 2 steps but 3.5 / 3.2 ms, Herschel-Bulkley
+        # 3 / 2 steps, 2.8 / 3.4 ms; pipe 2.9 / 2.7 and 2.5 / 2.7 ms): at the plug's edge
+        # the knee of the flow curve is a twentieth of a cell wide. Smooth fluids in a
+        # slit start from the discrete solution (power law n = 0.5 3 -> 0 steps, 2.4 ->
+        # 1.7 ms; Carreau and Cross 1 -> 0, 2.4 -> 2.2 ms). In an annulus the Newtonian zero-stress radius is not the
         # fluid's, and the exact start saves most of the damped steps (bench/one_solve.py,
         # inner wall moving: Bingham 18/6, Herschel-Bulkley 16/2, power law n = 0.5 6/3;
         # walls fixed: Bingham 26/7, Herschel-Bulkley 15/5); rotational flows 2-3/1; pipe
