@@ -15,10 +15,10 @@ bare results is wrapped in one. Conventions shared by the plots:
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-import math
 import matplotlib
 
 matplotlib.use("Agg")

@@ -457,7 +457,6 @@ def adapted_at_once(case, problem, start, history):
                           0, history, domain.cells, before, interpolate=False)
 
 
-
 def _adapted_mesh(found):
     """``(estimate, profile, points)`` of the adapted mesh an error estimate ``found``
     (``(estimate, profile, indicators)`` or None) asks for, or None where it is at most

@@ -435,9 +435,8 @@ class Problem:
         _, _, relative, residual, weight, scale, beyond = memo
         if beyond_round_off and relative <= ROUND_OFF_CHECK and scale != 0.0:
             if beyond is None:
-                residual = self._beyond_round_off(u, pressure_gradient, residual, weight)
-                beyond = memo[6] = float(_norm(residual) / scale)
-                self.round_off_level = self._bound_size / scale
+                beyond = memo[6] = self._beyond_round_off(u, pressure_gradient, residual,
+                                                          weight, scale)
             return beyond
         return relative
 
@@ -458,9 +457,10 @@ class Problem:
             return (0.0 if _norm(residual) == 0.0 else math.inf), residual, weight, scale
         return float(_norm(residual) / scale), residual, weight, scale
 
-    def _beyond_round_off(self, u, pressure_gradient, residual, weight) -> np.ndarray:
-        """The (weighted, free-dof) residual less the part that rounding the state to
-        floating point leaves on each equation.
+    def _beyond_round_off(self, u, pressure_gradient, residual, weight, scale) -> float:
+        """The relative size (over ``scale``) of the (weighted, free-dof) residual less
+        the part that rounding the state to floating point leaves on each equation; the
+        size of that part, relative in the same way, is kept as ``round_off_level``.
 
         Rounding every dof of the exact discrete solution to the nearest float leaves
         ``|r_i| <= eps (sum_j |J_ij| |u_j| + |G load_i|)`` (the componentwise backward
@@ -478,8 +478,8 @@ class Problem:
         bound = np.finfo(float).eps * ROUND_OFF_FACTOR * (
             self.plan.magnitude(stiffness, u) + np.abs(pressure_gradient * self.load))
         bound = bound[self.free] * weight[self.free]
-        self._bound_size = _norm(bound)
-        return np.sign(residual) * np.maximum(np.abs(residual) - bound, 0.0)
+        self.round_off_level = float(_norm(bound) / scale)
+        return float(_norm(np.maximum(np.abs(residual) - bound, 0.0)) / scale)
 
     def tangent(self, u) -> sp.csr_matrix:
         """The consistent Newton tangent on the free dofs."""

@@ -294,7 +294,6 @@ def line_start(problem: Problem, model: rheology.Model, gradient: float,
     return u
 
 
-
 def line_solution(problem: Problem, model: rheology.Model, gradient: float):
     """The discrete solution of a 1-D flow at a given pressure gradient, at the dofs, or
     None where no start can be formed: :func:`discrete_line_solution` from the exact
@@ -405,7 +404,6 @@ def _root(mismatch, c, f, walls, relative):
         if math.isfinite(high - low) and high - low <= 1e-15 * max(abs(low), abs(high)):
             return c, f[1]
     return None
-
 
 
 class _Cells:

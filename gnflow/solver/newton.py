@@ -39,7 +39,7 @@ def newton(problem: Problem, u, gradient, target_rate, tol, max_iterations, hist
         # to the next; a stalling iteration, which a larger share would explain, always
         # measures it afresh)
         r = problem.relative_residual(u_, g_, beyond_round_off=False)
-        level = getattr(problem, "round_off_level", None)
+        level = problem.round_off_level
         if not r <= tol and (level is None or progress_from is None
                              or not r <= 0.5 * progress_from
                              or r - ROUND_OFF_MARGIN * level <= tol):
@@ -367,21 +367,21 @@ def initial_state(problem: Problem, case: Case, model: rheology.Model, rate: flo
     if (domain.dimension == 1 and type(problem) is Problem
             and case.drive.flow_rate is None and model.name != "newtonian"
             and not (model.is_yield_stress and domain.shape in ("slit", "pipe"))):
+        # The start is the exact solution made the discrete one cell by cell
+        # (line_solution), which Newton then only confirms (1000-case power-law pipe
+        # sweep: 3000 Newton steps -> 0, CPU 1.9-2.0 s -> 0.8-0.9 s; 2026-12-04). In an
+        # annulus the Newtonian zero-stress radius is not the fluid's, and even the exact
+        # start saved most of the damped steps (bench/one_solve.py, inner wall moving:
+        # Bingham 18/6, Herschel-Bulkley 16/2, power law n = 0.5 6/3; walls fixed:
+        # Bingham 26/7, Herschel-Bulkley 15/5); rotational flows 2-3/1 (2026-12-03).
         # A regularised yield-stress fluid in a slit or a pipe keeps the start below:
-        # there the Newtonian stress is the exact one (or, with a moving wall, close), and
-        # Newton from it took about as many steps as from the discrete start (2026-12-04,
+        # there the Newtonian stress is the exact one (or, with a moving wall, close),
+        # and Newton from it cost about as much as from the discrete start (2026-12-04,
         # bench/one_solve.py: slit Bingham 5 / 2 steps but 3.5 / 3.2 ms, Herschel-Bulkley
-        # 3 / 2 steps, 2.8 / 3.4 ms; pipe 2.9 / 2.7 and 2.5 / 2.7 ms): at the plug's edge
-        # the knee of the flow curve is a twentieth of a cell wide. Smooth fluids in a
-        # slit start from the discrete solution (power law n = 0.5 3 -> 0 steps, 2.4 ->
-        # 1.7 ms; Carreau and Cross 1 -> 0, 2.4 -> 2.2 ms). In an annulus the Newtonian zero-stress radius is not the
-        # fluid's, and the exact start saves most of the damped steps (bench/one_solve.py,
-        # inner wall moving: Bingham 18/6, Herschel-Bulkley 16/2, power law n = 0.5 6/3;
-        # walls fixed: Bingham 26/7, Herschel-Bulkley 15/5); rotational flows 2-3/1; pipe
-        # power law and Carreau alike, without the two Picard solves. Measured 2026-12-03.
-        # the exact state made the discrete solution cell by cell (line_solution):
-        # Newton then only confirms it (1000-case power-law pipe sweep: 3000 Newton
-        # steps -> 0, CPU 1.9-2.0 s -> 0.8-0.9 s; measured 2026-12-04)
+        # 3 / 2 steps, 2.8 / 3.4 ms; pipe 2.9 / 2.7 and 2.5 / 2.7 ms): at the plug's
+        # edge the knee of the flow curve is a twentieth of a cell wide. Smooth fluids in
+        # a slit: power law n = 0.5 3 -> 0 steps, 2.4 -> 1.7 ms; Carreau and Cross 1 ->
+        # 0, 2.4 -> 2.2 ms.
         exact = line_solution(problem, model, gradient)
         if exact is not None:
             return exact, gradient

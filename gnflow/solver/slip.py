@@ -299,9 +299,7 @@ class SlipProblem(Problem):
             # sliding on its walls has a huge regularised viscosity and a speed far from
             # zero everywhere, which lifts that share to 1e-9 (a Bingham pipe held by a
             # slip yield stress ran 100 iterations at 1.5e-9)
-            residual = self._beyond_round_off(u, pressure_gradient, residual, weight)
-            relative = float(_norm(residual) / scale)
-            self.round_off_level = self._bound_size / scale
+            relative = self._beyond_round_off(u, pressure_gradient, residual, weight, scale)
         return relative
 
     def tangent(self, u) -> sp.csr_matrix:
